@@ -155,6 +155,128 @@ def _plant_text(analysis) -> str:
     )
 
 
+def _progress(enabled: bool):
+    """Stage messages on stderr (only for a terminal, never in --json output)."""
+    if not enabled or not sys.stderr.isatty():
+        return None
+    return lambda text: print(f"... {text}", file=sys.stderr, flush=True)
+
+
+def _cmd_design(args) -> int:
+    from .design import design
+    from .spec import load_design
+
+    spec = load_design(args.file)
+    result = design(spec, progress=_progress(not args.json))
+    if args.json:
+        from .textout import to_json
+
+        print(to_json(result.to_dict()))
+        return 0
+    print(_design_text(result))
+    return 0
+
+
+def _cmd_check(args) -> int:
+    from .design import design
+    from .spec import load_design
+
+    spec = load_design(args.file)
+    result = design(spec)
+    bad = result.failing_corners()
+    if result.compensator is None:
+        print(f"FAIL {spec.name}: no compensator could be synthesised")
+        for t in result.tried:
+            print(f"  {t}")
+        return 1
+    rounded_bad = [
+        c for c in (result.nominal, *result.corners) if c.meets_targets_rounded is False
+    ]
+    if not bad and not rounded_bad:
+        n = 1 + len(result.corners)
+        print(f"PASS {spec.name}: {n} corner(s) meet PM >= {spec.target.phase_margin_deg:g} deg, "
+              f"GM >= {spec.target.gain_margin_db:g} dB, closed loop stable")
+        return 0
+    print(f"FAIL {spec.name}: {len(bad)} corner(s) miss the targets"
+          + (f", {len(rounded_bad)} with rounded parts" if rounded_bad else ""))
+    for c in bad:
+        print(f"  {c.name}: " + "; ".join(c.failures))
+    for c in rounded_bad:
+        if c not in bad:
+            print(f"  {c.name} (rounded parts): misses the targets")
+    return 1
+
+
+def _design_text(result) -> str:
+    from .quantities import format_eng as e
+    from .textout import table
+
+    spec = result.spec
+    out = [f"{spec.name}: {spec.power_stage.topology} loop design"]
+    verdict = "MEETS TARGETS at every corner" if result.meets_targets else "DOES NOT MEET TARGETS"
+    out.append(f"verdict: {verdict}")
+    out.append(f"crossover target {e(result.f_c_hz, 'Hz')} ({result.crossover_reason})")
+    comp = result.compensator
+    if comp is None:
+        out.append("no compensator:")
+        out.extend(f"  {t}" for t in result.tried)
+        return "\n".join(out)
+    out.append(
+        f"compensator {comp.kind} ({comp.strategy}"
+        + (f", K = {comp.k:.4g}" if comp.k else "")
+        + f"): integrator w_i = {comp.w_i:.5g} rad/s, zeros at "
+        + (", ".join(e(f, "Hz") for f in comp.zeros_hz) or "none")
+        + ", poles at 0 Hz"
+        + "".join(", " + e(f, "Hz") for f in comp.poles_hz)
+    )
+    real = result.realization
+    if real is not None:
+        unit = {"R": "ohm", "C": "F", "g": "S"}
+        rows = [
+            [k, e(real.ideal_components[k], unit[k[0]]), e(v, unit[k[0]])]
+            for k, v in real.components.items()
+        ]
+        out.append(f"\n{real.network} network, resistors {real.series_r}, capacitors {real.series_c}")
+        out.append(table(["part", "ideal", "rounded"], rows))
+    rows = []
+    for c in (result.nominal, *result.corners):
+        a = c.analysis
+        if a is None:
+            rows.append([c.name, "-", "-", "-", "-", "not proven (DCM)"])
+            continue
+        m = a.margins
+        rounded = ""
+        if c.analysis_rounded is not None:
+            rounded = f"{c.analysis_rounded.phase_margin_deg:.1f}"
+        rows.append(
+            [
+                c.name,
+                e(m.crossover_hz, "Hz"),
+                f"{m.phase_margin_deg:.1f}",
+                "inf" if m.gain_margin_db == float("inf") else f"{m.gain_margin_db:.1f}",
+                rounded or "-",
+                ("stable" if a.closed_loop_stable else "UNSTABLE")
+                + ("  pass" if c.meets_targets else "  FAIL: " + "; ".join(c.failures)),
+            ]
+        )
+    out.append("")
+    out.append(table(["corner", "crossover", "PM deg", "GM dB", "PM rounded", "verdict"], rows))
+    if result.digital is not None:
+        dg = result.digital
+        try:
+            out.append("")
+            out.append(f"digital controller: {dg.summary_text()}")
+        except AttributeError:
+            pass
+    if result.warnings:
+        out.append("")
+        out.append("notes:")
+        out.extend(f"  - {w}" for w in result.warnings)
+    out.append("")
+    out.append(CAUTION)
+    return "\n".join(out)
+
+
 # ----------------------------------------------------------------------------- parser
 def build_parser() -> argparse.ArgumentParser:
     p = _Parser(
@@ -179,6 +301,17 @@ def build_parser() -> argparse.ArgumentParser:
         "--symbolic", action="store_true", help="print Gvd(s) with symbols (ideal and lossy)"
     )
     pl.set_defaults(func=_cmd_plant)
+
+    de = sub.add_parser("design", help="synthesise the compensator and prove the loop at every corner")
+    de.add_argument("file", help="design file (TOML)")
+    de.add_argument("--json", action="store_true", help="machine-readable output")
+    de.set_defaults(func=_cmd_design)
+
+    ch = sub.add_parser(
+        "check", help="exit 0 when every corner meets the targets, 1 when any misses, 2 on bad input"
+    )
+    ch.add_argument("file", help="design file (TOML)")
+    ch.set_defaults(func=_cmd_check)
 
     for extra in _EXTRA_VERBS:
         extra(sub)

@@ -189,22 +189,60 @@ def _cmd_check(args) -> int:
         for t in result.tried:
             print(f"  {t}")
         return 1
-    rounded_bad = [
-        c for c in (result.nominal, *result.corners) if c.meets_targets_rounded is False
-    ]
+    rounded_bad = [c for c in (result.nominal, *result.corners) if c.meets_targets_rounded is False]
     if not bad and not rounded_bad:
         n = 1 + len(result.corners)
-        print(f"PASS {spec.name}: {n} corner(s) meet PM >= {spec.target.phase_margin_deg:g} deg, "
-              f"GM >= {spec.target.gain_margin_db:g} dB, closed loop stable")
+        print(
+            f"PASS {spec.name}: {n} corner(s) meet PM >= {spec.target.phase_margin_deg:g} deg, "
+            f"GM >= {spec.target.gain_margin_db:g} dB, closed loop stable"
+        )
         return 0
-    print(f"FAIL {spec.name}: {len(bad)} corner(s) miss the targets"
-          + (f", {len(rounded_bad)} with rounded parts" if rounded_bad else ""))
+    print(
+        f"FAIL {spec.name}: {len(bad)} corner(s) miss the targets"
+        + (f", {len(rounded_bad)} with rounded parts" if rounded_bad else "")
+    )
     for c in bad:
         print(f"  {c.name}: " + "; ".join(c.failures))
     for c in rounded_bad:
         if c not in bad:
             print(f"  {c.name} (rounded parts): misses the targets")
     return 1
+
+
+def _cmd_export(args) -> int:
+    from ._io import write_files_atomically
+    from .design import design
+    from .export import render
+    from .spec import load_design
+
+    spec = load_design(args.file)
+    if spec.digital is None:
+        raise DesignError(
+            "the design has no [digital] table; add sample_rate, delay, method and format",
+            key="digital",
+        )
+    result = design(spec, progress=_progress(True))
+    if result.digital is None:
+        _err("no compensator could be synthesised, so there is nothing to export:")
+        for t in result.tried:
+            print(f"  {t}", file=sys.stderr)
+        return 1
+    files = render(result.digital, args.format, design_name=spec.name, design_text=spec.source_text)
+    out = Path(args.output or Path("export") / spec.name)
+    try:
+        paths = write_files_atomically(out, files, force=args.force)
+    except FileExistsError as err:
+        _err(f"{err}")
+        return 2
+    for p in paths:
+        print(f"wrote {p}")
+    if not result.meets_targets:
+        print(
+            "warning: the continuous design does not meet its targets at every corner "
+            "(run `loopwright check`)",
+            file=sys.stderr,
+        )
+    return 0
 
 
 def _design_text(result) -> str:
@@ -236,7 +274,9 @@ def _design_text(result) -> str:
             [k, e(real.ideal_components[k], unit[k[0]]), e(v, unit[k[0]])]
             for k, v in real.components.items()
         ]
-        out.append(f"\n{real.network} network, resistors {real.series_r}, capacitors {real.series_c}")
+        out.append(
+            f"\n{real.network} network, resistors {real.series_r}, capacitors {real.series_c}"
+        )
         out.append(table(["part", "ideal", "rounded"], rows))
     rows = []
     for c in (result.nominal, *result.corners):
@@ -260,7 +300,13 @@ def _design_text(result) -> str:
             ]
         )
     out.append("")
-    out.append(table(["corner", "crossover", "PM deg", "GM dB", "PM rounded", "verdict"], rows))
+    out.append(
+        table(
+            ["corner", "crossover", "PM deg", "GM dB", "PM rounded", "verdict"],
+            rows,
+            left_last=True,
+        )
+    )
     if result.digital is not None:
         dg = result.digital
         try:
@@ -302,16 +348,26 @@ def build_parser() -> argparse.ArgumentParser:
     )
     pl.set_defaults(func=_cmd_plant)
 
-    de = sub.add_parser("design", help="synthesise the compensator and prove the loop at every corner")
+    de = sub.add_parser(
+        "design", help="synthesise the compensator and prove the loop at every corner"
+    )
     de.add_argument("file", help="design file (TOML)")
     de.add_argument("--json", action="store_true", help="machine-readable output")
     de.set_defaults(func=_cmd_design)
 
     ch = sub.add_parser(
-        "check", help="exit 0 when every corner meets the targets, 1 when any misses, 2 on bad input"
+        "check",
+        help="exit 0 when every corner meets the targets, 1 when any misses, 2 on bad input",
     )
     ch.add_argument("file", help="design file (TOML)")
     ch.set_defaults(func=_cmd_check)
+
+    ex = sub.add_parser("export", help="digital controller for firmware (needs [digital])")
+    ex.add_argument("file", help="design file (TOML)")
+    ex.add_argument("--format", required=True, choices=["c", "json", "csv"])
+    ex.add_argument("-o", "--output", help="output folder (default export/NAME/)")
+    ex.add_argument("--force", action="store_true", help="replace existing files")
+    ex.set_defaults(func=_cmd_export)
 
     for extra in _EXTRA_VERBS:
         extra(sub)

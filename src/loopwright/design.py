@@ -20,7 +20,6 @@ import numpy as np
 
 from .compensators import Compensator
 from .compensators.kfactor import (
-    BOOST_LIMIT_DEG,
     InfeasibleSynthesisError,
     max_k_factor_crossover_hz,
     synthesize_k_factor,
@@ -40,7 +39,9 @@ PM_HEADROOM_DEG = 0.5
 #: Tolerance of the pass/fail comparison against the targets. [deg] / [dB]
 CHECK_TOL = 1e-6
 #: Re-synthesis rounds used to make the nominal design hold at every corner.
-MAX_ROBUST_STEPS = 8
+MAX_ROBUST_STEPS = 12
+#: Highest phase margin the nominal synthesis may aim at while making corners hold. [deg]
+MAX_DESIGN_PM_DEG = 120.0
 
 KINDS = ("type1", "type2", "type3")
 
@@ -350,10 +351,14 @@ def _choose_crossover(spec: DesignSpec, plant: PlantAnalysis, kind_hint: str, de
                 f"{t.rhp_zero_fraction:.3g} x the lowest RHP zero ({format_eng(f_rhp, 'Hz')})"
             )
         return t.crossover_hz, "given in the design file", notes
+    frac = t.max_crossover_fraction
+    if delay_s > 0:
+        # a sampled loop loses 360 fc Td degrees: cross at most at fs/20 (common practice)
+        frac = min(frac, 0.05)
     ceiling = crossover_ceiling(
         ps.f_sw,
         f_rhp_hz=f_rhp,
-        sw_divisor=1.0 / t.max_crossover_fraction,
+        sw_divisor=1.0 / frac,
         rhp_divisor=1.0 / t.rhp_zero_fraction,
     )
     fc = ceiling.f_c_max_hz
@@ -363,15 +368,20 @@ def _choose_crossover(spec: DesignSpec, plant: PlantAnalysis, kind_hint: str, de
             f"({format_eng(f_rhp, 'Hz')})"
         )
     else:
-        reason = f"{t.max_crossover_fraction:g} x fsw ({format_eng(ps.f_sw, 'Hz')})"
+        reason = f"{frac:g} x fsw ({format_eng(ps.f_sw, 'Hz')})" + (
+            " (sampled loop: the delay costs 360 fc Td degrees)" if delay_s > 0 else ""
+        )
     # where the phase-margin target is reachable with the most capable type allowed
     kind = "type3" if kind_hint == "auto" else kind_hint
     worst = plant.valid_corners()
     f_reach = []
     for cp in worst:
         f_max = max_k_factor_crossover_hz(
-            _response_fn(spec, cp, delay_s), t.phase_margin_deg + PM_HEADROOM_DEG, kind,
-            ps.f_sw / 1e4, fc,
+            _response_fn(spec, cp, delay_s),
+            t.phase_margin_deg + PM_HEADROOM_DEG,
+            kind,
+            ps.f_sw / 1e4,
+            fc,
         )
         f_reach.append(0.0 if f_max is None else f_max)
     reach = min(f_reach) if f_reach else fc
@@ -382,6 +392,18 @@ def _choose_crossover(spec: DesignSpec, plant: PlantAnalysis, kind_hint: str, de
             f"corner (below {reason})"
         )
     return fc, reason, []
+
+
+def _score(results: list[CornerResult]) -> tuple:
+    """Order candidate designs: more corners passing, then more stable, then higher worst PM."""
+    passing = sum(r.meets_targets for r in results)
+    stable = sum(bool(r.analysis and r.analysis.closed_loop_stable) for r in results)
+    pms = [
+        r.analysis.phase_margin_deg
+        for r in results
+        if r.analysis is not None and math.isfinite(r.analysis.phase_margin_deg)
+    ]
+    return passing, stable, min(pms, default=-math.inf)
 
 
 def _synthesize(
@@ -400,15 +422,23 @@ def _synthesize(
     if t.strategy == "resonance" and kind == "type3":
         f = nominal.model.features()
         return synthesize_resonance(
-            p_fc, fc, f.f0_hz, spec.power_stage.f_sw,
-            f_esr_hz=f.esr_zero_hz, f_rhp_hz=plant.lowest_rhp_zero_hz(),
+            p_fc,
+            fc,
+            f.f0_hz,
+            spec.power_stage.f_sw,
+            f_esr_hz=f.esr_zero_hz,
+            f_rhp_hz=plant.lowest_rhp_zero_hz(),
         )
     # continuous plant phase at fc, unwrapped from low frequency
     f_grid = np.geomspace(fc / 1e4, fc, 2001)
     ph = np.degrees(np.unwrap(np.angle(resp(2 * math.pi * f_grid))))
     return synthesize_k_factor(
-        p_fc, fc, t.phase_margin_deg + PM_HEADROOM_DEG + pm_extra, kind,
-        plant_phase_deg=float(ph[-1]), plant_response=resp,
+        p_fc,
+        fc,
+        t.phase_margin_deg + PM_HEADROOM_DEG + pm_extra,
+        kind,
+        plant_phase_deg=float(ph[-1]),
+        plant_response=resp,
     )
 
 
@@ -421,7 +451,9 @@ def _analyze(spec, cps: list[CornerPlant], comp: Compensator, delay_s: float):
 def _corner_results(spec, plant, comp, delay_s, comp_rounded=None) -> list[CornerResult]:
     allc = [plant.nominal, *plant.corners]
     valid = [cp for cp in allc if cp.model is not None]
-    analyses = dict(zip((id(cp) for cp in valid), _analyze(spec, valid, comp, delay_s), strict=True))
+    analyses = dict(
+        zip((id(cp) for cp in valid), _analyze(spec, valid, comp, delay_s), strict=True)
+    )
     rounded = {}
     if comp_rounded is not None:
         rounded = dict(
@@ -433,7 +465,11 @@ def _corner_results(spec, plant, comp, delay_s, comp_rounded=None) -> list[Corne
         if a is None:
             out.append(
                 CornerResult(
-                    cp.corner.name, cp.corner.v_in, cp.corner.i_out, None, False,
+                    cp.corner.name,
+                    cp.corner.v_in,
+                    cp.corner.i_out,
+                    None,
+                    False,
                     ("discontinuous conduction: not proven (CCM model does not hold)",),
                 )
             )
@@ -442,7 +478,9 @@ def _corner_results(spec, plant, comp, delay_s, comp_rounded=None) -> list[Corne
         ar = rounded.get(id(cp))
         okr = _judge(spec, ar)[0] if ar is not None else None
         out.append(
-            CornerResult(cp.corner.name, cp.corner.v_in, cp.corner.i_out, a, ok, tuple(fails), ar, okr)
+            CornerResult(
+                cp.corner.name, cp.corner.v_in, cp.corner.i_out, a, ok, tuple(fails), ar, okr
+            )
         )
     return out
 
@@ -488,9 +526,12 @@ def design(spec: DesignSpec, *, progress: Callable[[str], None] | None = None) -
     tried: list[str] = []
     first_fail: tuple | None = None
     fc0 = fc
+    # voltage mode: do not push the crossover down onto the LC resonance (common practice)
+    f0s = [cp.model.features().f0_hz or 0.0 for cp in plant.valid_corners()]
+    f_floor = 2.0 * max(f0s, default=0.0)
     for kind in kinds:
         pm_extra, fc_k = 0.0, fc0
-        cand = None
+        cand = best = None
         for _ in range(MAX_ROBUST_STEPS):
             say(f"synthesising {kind} at {format_eng(fc_k, 'Hz')}")
             try:
@@ -498,11 +539,16 @@ def design(spec: DesignSpec, *, progress: Callable[[str], None] | None = None) -
                     warnings.simplefilter("always")
                     comp = _synthesize(spec, plant, kind, fc_k, delay_s, pm_extra)
             except InfeasibleSynthesisError as err:
+                if t.crossover_hz is None and fc_k > fc0 / 20:
+                    fc_k *= 0.8  # the corners need more phase than this type gives here
+                    continue
                 tried.append(f"{kind}: {err}")
                 break
             say(f"proving {kind} at {len(plant.corners) + 1} corners")
             results = _corner_results(spec, plant, comp, delay_s)
             cand = (comp, results, [str(w.message) for w in wrec], fc_k, pm_extra)
+            if best is None or _score(results) > _score(best[1]):
+                best = cand
             if all(r.meets_targets for r in results):
                 break
             # robustness: aim the nominal design higher by the worst corner's shortfall, and
@@ -511,7 +557,8 @@ def design(spec: DesignSpec, *, progress: Callable[[str], None] | None = None) -
                 (
                     t.phase_margin_deg - r.analysis.phase_margin_deg
                     for r in results
-                    if r.analysis is not None and r.analysis.closed_loop_stable
+                    if r.analysis is not None
+                    and r.analysis.closed_loop_stable
                     and math.isfinite(r.analysis.phase_margin_deg)
                 ),
                 default=0.0,
@@ -520,16 +567,23 @@ def design(spec: DesignSpec, *, progress: Callable[[str], None] | None = None) -
                 r.analysis is not None and r.analysis.gain_margin_db < t.gain_margin_db
                 for r in results
             )
-            unstable = any(r.analysis is not None and not r.analysis.closed_loop_stable
-                           for r in results)
+            unstable = any(
+                r.analysis is not None and not r.analysis.closed_loop_stable for r in results
+            )
             if short_pm > 0:
                 pm_extra += short_pm + PM_HEADROOM_DEG
-            if (short_gm or unstable or short_pm <= 0) and t.crossover_hz is None:
+            capped = t.phase_margin_deg + PM_HEADROOM_DEG + pm_extra > MAX_DESIGN_PM_DEG
+            if capped:
+                pm_extra = MAX_DESIGN_PM_DEG - t.phase_margin_deg - PM_HEADROOM_DEG
+            if (short_gm or unstable or capped or short_pm <= 0) and t.crossover_hz is None:
                 fc_k *= 0.85
+                if fc_k < f_floor:
+                    break  # below this the loop would cross near the LC resonance
             elif short_pm <= 0:
                 break
-        if cand is None:
+        if best is None:
             continue
+        cand = best
         ok = all(r.meets_targets for r in cand[1])
         tried.append(
             f"{kind}: "
@@ -548,15 +602,26 @@ def design(spec: DesignSpec, *, progress: Callable[[str], None] | None = None) -
         chosen = first_fail
     if chosen is None:
         notes.extend(tried)
-        nominal = CornerResult("nominal", spec.power_stage.v_in, spec.power_stage.i_out, None, False,
-                               tuple(tried))
+        nominal = CornerResult(
+            "nominal", spec.power_stage.v_in, spec.power_stage.i_out, None, False, tuple(tried)
+        )
         return DesignResult(
-            spec, plant, None, fc, reason, nominal, (), meets_targets=False,
-            warnings=tuple(notes), tried=tuple(tried),
+            spec,
+            plant,
+            None,
+            fc,
+            reason,
+            nominal,
+            (),
+            meets_targets=False,
+            warnings=tuple(notes),
+            tried=tuple(tried),
         )
     comp, results, syn_notes, fc_used, _ = chosen
     if fc_used != fc:
-        reason = f"{reason}; lowered to {format_eng(fc_used, 'Hz')} so every corner keeps its margins"
+        reason = (
+            f"{reason}; lowered to {format_eng(fc_used, 'Hz')} so every corner keeps its margins"
+        )
         fc = fc_used
     notes.extend(syn_notes)
     if len(kinds) > 1 or not all(r.meets_targets for r in results):
@@ -570,7 +635,9 @@ def design(spec: DesignSpec, *, progress: Callable[[str], None] | None = None) -
         results = _corner_results(spec, plant, comp, delay_s, comp_rounded)
         for r in results:
             if r.meets_targets_rounded is False and r.meets_targets:
-                notes.append(f"{r.name}: meets the targets with ideal parts but not with rounded parts")
+                notes.append(
+                    f"{r.name}: meets the targets with ideal parts but not with rounded parts"
+                )
     digital = None
     if d is not None:
         say("discretising the controller")
@@ -634,8 +701,12 @@ def _digital(spec: DesignSpec, plant: PlantAnalysis, comp: Compensator, fc: floa
     with warnings.catch_warnings(record=True) as wrec:
         warnings.simplefilter("always")
         dig = design_digital(
-            comp.num, comp.den, (a, b.reshape(-1, 1), c.reshape(1, -1), np.array([[dd]])),
-            modulator_gain=spec.modulator_gain, sense_gain=spec.sense_gain, options=opts,
+            comp.num,
+            comp.den,
+            (a, b.reshape(-1, 1), c.reshape(1, -1), np.array([[dd]])),
+            modulator_gain=spec.modulator_gain,
+            sense_gain=spec.sense_gain,
+            options=opts,
             f_c_hz=fc,
         )
     return dig, [str(w.message) for w in wrec]

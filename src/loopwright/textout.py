@@ -13,8 +13,14 @@ from .quantities import format_eng
 __all__ = ["table", "roots_text", "to_json"]
 
 
-def table(headers: Sequence[str], rows: Sequence[Sequence[str]], *, indent: str = "") -> str:
-    """Left-aligned first column, right-aligned others."""
+def table(
+    headers: Sequence[str],
+    rows: Sequence[Sequence[str]],
+    *,
+    indent: str = "",
+    left_last: bool = False,
+) -> str:
+    """Left-aligned first column (and last, with ``left_last``), right-aligned others."""
     widths = [len(h) for h in headers]
     for r in rows:
         widths = [max(w, len(c)) for w, c in zip(widths, r, strict=True)]
@@ -22,7 +28,8 @@ def table(headers: Sequence[str], rows: Sequence[Sequence[str]], *, indent: str 
     def line(cells):
         out = []
         for i, (c, w) in enumerate(zip(cells, widths, strict=True)):
-            out.append(c.ljust(w) if i == 0 else c.rjust(w))
+            left = i == 0 or (i == len(widths) - 1 and left_last)
+            out.append(c.ljust(w) if left else c.rjust(w))
         return indent + "  ".join(out).rstrip()
 
     sep = indent + "  ".join("-" * w for w in widths)

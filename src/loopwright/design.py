@@ -646,9 +646,10 @@ def design(spec: DesignSpec, *, progress: Callable[[str], None] | None = None) -
     meets = all(r.meets_targets for r in results)
     for r in results:
         if r.analysis is not None and r.analysis.margins.conditionally_stable:
+            grm = r.analysis.margins.gain_reduction_margin_db
             notes.append(
                 f"{r.name}: conditionally stable (phase crosses -180 deg below crossover where "
-                f"|T| > 1; gain-reduction margin {r.analysis.margins.gain_reduction_margin_db:.1f} dB)"
+                f"|T| > 1; gain-reduction margin {grm:.1f} dB)"
             )
     return DesignResult(
         spec=spec,

@@ -245,6 +245,119 @@ def _cmd_export(args) -> int:
     return 0
 
 
+def _progress_bar(enabled: bool):
+    """A one-line progress bar on stderr for long runs (terminal only)."""
+    if not enabled or not sys.stderr.isatty():
+        return None
+    state = {"last": -1}
+
+    def show(fraction: float) -> None:
+        pct = int(100 * min(max(fraction, 0.0), 1.0))
+        if pct != state["last"]:
+            state["last"] = pct
+            bar = "#" * (pct // 4)
+            print(f"\r[{bar:<25}] {pct:3d} %", end="", file=sys.stderr, flush=True)
+            if pct >= 100:
+                print(file=sys.stderr)
+
+    return show
+
+
+def _cmd_simulate(args) -> int:
+    from .spec import load_design
+
+    spec = load_design(args.file)
+    controller = None
+    if not args.open_loop or args.frequency_response:
+        from .design import design
+
+        result = design(spec, progress=_progress(not args.json))
+        if result.compensator is None:
+            _err("no compensator could be synthesised; use --open-loop")
+            return 1
+        controller = result.digital if result.digital is not None else result.compensator
+    bar = _progress_bar(True)
+    if args.frequency_response:
+        from .simulate import measure_loop_gain
+
+        fr = measure_loop_gain(spec, controller, points=args.points, progress=bar)
+        data = fr.to_dict()
+        if args.json:
+            from .textout import to_json
+
+            print(to_json(data))
+        else:
+            from .textout import table
+
+            rows = [
+                [f"{f:.4g}", f"{m:.2f}", f"{p:.1f}", f"{mm:.2f}", f"{mp:.1f}"]
+                for f, m, p, mm, mp in zip(
+                    data["f_hz"],
+                    data["measured_mag_db"],
+                    data["measured_phase_deg"],
+                    data["model_mag_db"],
+                    data["model_phase_deg"],
+                    strict=True,
+                )
+            ]
+            print("Loop gain measured by injection on the switching model vs the averaged model")
+            print(table(["f Hz", "meas dB", "meas deg", "model dB", "model deg"], rows))
+        return 0
+    from .simulate import simulate_design
+
+    if args.load_step is not None:
+        lo, hi = args.load_step
+        for v, name in ((lo, "FROM"), (hi, "TO")):
+            if not (v >= 0 and v < 1e6):
+                raise DesignError(f"must be >= 0 A, got {v!r}", key=f"--load-step {name}")
+    sim = simulate_design(
+        spec,
+        controller,
+        open_loop=args.open_loop,
+        max_cycles=args.cycles,
+        load_step=tuple(args.load_step) if args.load_step else None,
+        progress=bar,
+    )
+    data = sim.to_dict()
+    if args.plot:
+        from .plotting import plot_waveforms
+
+        fig, _ = plot_waveforms(sim)
+        import io
+
+        from ._io import write_files_atomically
+
+        buf = io.BytesIO()
+        fmt = Path(args.plot).suffix.lstrip(".") or "png"
+        fig.savefig(buf, format=fmt)
+        target = Path(args.plot)
+        try:
+            write_files_atomically(target.parent, {target.name: buf.getvalue()}, force=args.force)
+        except FileExistsError as err:
+            _err(str(err))
+            return 2
+    if args.json:
+        from .textout import to_json
+
+        print(to_json(data))
+        return 0
+    from .quantities import format_eng as e
+
+    print(f"{spec.name}: switching-level simulation ({data['mode']})")
+    steady = "reached" if data["steady"] else "NOT reached"
+    print(f"  cycles run {data['cycles']}, steady state {steady}")
+    print(f"  vout avg {e(data['vout_avg'], 'V')}, ripple {e(data['vout_ripple_pp'], 'V')} p-p")
+    print(f"  iL avg {e(data['il_avg'], 'A')}, ripple {e(data['il_ripple_pp'], 'A')} p-p")
+    print(f"  duty avg {data['duty_avg']:.4f}")
+    ls = data.get("load_step")
+    if ls:
+        print(
+            f"  load step {e(ls['from_a'], 'A')} -> {e(ls['to_a'], 'A')}: deviation "
+            f"{e(ls['deviation_v'], 'V')}, settling {e(ls['settling_time_s'], 's')}"
+        )
+    return 0
+
+
 def _design_text(result) -> str:
     from .quantities import format_eng as e
     from .textout import table
@@ -369,12 +482,36 @@ def build_parser() -> argparse.ArgumentParser:
     ex.add_argument("--force", action="store_true", help="replace existing files")
     ex.set_defaults(func=_cmd_export)
 
+    si = sub.add_parser(
+        "simulate", help="switching-level simulation that checks the averaged model"
+    )
+    si.add_argument("file", help="design file (TOML)")
+    si.add_argument("--open-loop", action="store_true", help="fixed duty at the operating point")
+    si.add_argument("--cycles", type=int, default=20000, help="cycle cap (default 20000)")
+    si.add_argument(
+        "--load-step", nargs=2, type=float, metavar=("FROM", "TO"), help="load step [A]"
+    )
+    si.add_argument(
+        "--frequency-response", action="store_true", help="measure the loop gain by injection"
+    )
+    si.add_argument("--points", type=int, default=12, help="injection frequencies (default 12)")
+    si.add_argument("--plot", help="write a waveform plot (PNG or SVG) to this file")
+    si.add_argument("--force", action="store_true", help="replace an existing plot file")
+    si.add_argument("--json", action="store_true", help="machine-readable output")
+    si.set_defaults(func=_cmd_simulate)
+
     for extra in _EXTRA_VERBS:
         extra(sub)
     return p
 
 
-_EXTRA_VERBS: list = []
+def _report_verb(sub) -> None:
+    from .report.cli import add_report_verb
+
+    add_report_verb(sub)
+
+
+_EXTRA_VERBS: list = [_report_verb]
 
 
 def main(argv: Sequence[str] | None = None) -> int:

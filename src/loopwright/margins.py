@@ -72,8 +72,9 @@ class LoopMargins:
     Attributes
     ----------
     crossover_hz : float
-        The gain crossover (``|T| = 1``) with the lowest phase margin; ``nan`` if ``|T|``
-        never crosses 1 in the searched range. [Hz]
+        The gain crossover (``|T| = 1``) whose phase margin is smallest in magnitude: the one
+        nearest the critical point -1 (for a loop with only positive margins, the lowest
+        margin); ``nan`` if ``|T|`` never crosses 1 in the searched range. [Hz]
     phase_margin_deg : float
         ``180 + angle T`` at ``crossover_hz``, wrapped into (-180, 180]; ``nan`` without a
         crossover. [deg]
@@ -86,9 +87,10 @@ class LoopMargins:
         Margin to a gain *reduction* (conditional stability): the smallest ``20 log10 |T|``
         over phase crossings where ``|T| > 1``; ``None`` if there is none. [dB]
     delay_margin_s : float
-        Smallest ``PM_rad / w_c`` over all gain crossovers: the pure delay that would bring
-        that crossover to the critical point. Negative when a crossover already has a negative
-        phase margin; ``+inf`` without a crossover. [s]
+        Smallest extra pure delay that brings a gain crossover onto -1: the minimum over all
+        crossovers of ``(PM mod 360 deg) / w_c`` in radians per rad/s (a crossover with a
+        negative margin needs the delay that turns it once more around to -1, the convention
+        of python-control); ``+inf`` without a crossover. [s]
     gain_crossovers_hz : tuple of float
         Every frequency where ``|T| = 1``, ascending. [Hz]
     phase_crossovers_hz : tuple of float
@@ -415,9 +417,6 @@ def _scan_rows(
     if rows.size == 0:
         return srows, scols
     c = cols + 1
-    calm = np.ones(rows.size, dtype=bool)
-    if split is not None:
-        calm = ~split[rows, c - 1] & ~split[rows, c]
     ml, mc, mr = m2[rows, c - 1], m2[rows, c], m2[rows, c + 1]
     tl, tc, tr = t[rows, c - 1], t[rows, c], t[rows, c + 1]
     with np.errstate(all="ignore"):
@@ -434,7 +433,9 @@ def _scan_rows(
         (zmax, _PHASE, 1.0),
         (zmin, _PHASE, -1.0),
     ):
-        sel = np.nonzero(mask & calm)[0]
+        # candidates beside a split interval are kept: the split rows may not reach the
+        # extremum, and a pair found twice is merged when the roots are collected
+        sel = np.nonzero(mask)[0]
         if sel.size:
             r, cc = rows[sel], c[sel]
             hidden.append(
@@ -654,11 +655,11 @@ def _assemble(k, loops, kind, x, t, direction) -> list[LoopMargins]:
     pmc = np.full(k, math.nan)
     delay = np.full(k, math.inf)
     if g_loop.size:
-        order = np.lexsort((g_pm, g_loop))
+        order = np.lexsort((np.abs(g_pm), g_loop))
         first = order[np.searchsorted(g_loop[order], np.unique(g_loop))]
         fc[g_loop[first]] = g_f[first]
         pmc[g_loop[first]] = g_pm[first]
-        np.minimum.at(delay, g_loop, np.radians(g_pm) / (2.0 * math.pi * g_f))
+        np.minimum.at(delay, g_loop, np.radians(np.mod(g_pm, 360.0)) / (2.0 * math.pi * g_f))
     below = p_mag < 1.0
     above = p_mag > 1.0
     mag_below = np.full(k, -math.inf)

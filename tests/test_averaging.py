@@ -127,12 +127,6 @@ def test_freqresp_scalar_and_vector():
     assert out[2] == pytest.approx(m.freqresp("v_out", "d", 100.0), rel=1e-15)
 
 
-@pytest.mark.xfail(
-    strict=True,
-    raises=ValueError,
-    reason="AveragedModel.freqresp iterates over the first axis of a 2-D frequency array "
-    "(np.atleast_1d(s) instead of s.ravel()) and then fails to reshape",
-)
 def test_freqresp_keeps_the_shape_of_a_2d_grid():
     m = ideal(BUCK, 0.5)
     f = np.array([[1.0, 10.0], [100.0, 1000.0]])
@@ -178,12 +172,6 @@ def test_custom_key_in_solver_error():
         solve_duty(sw, np.array([12.0, 0.0, 0.0]), 20.0, key="corner.vout")
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="averaging.solve_duty compares |vout| and takes v_low = |vout(D=1e-4)|: with a diode "
-    "drop the output at the lowest duty is negative (about -VF), so targets below ~VF are refused "
-    "although the averaged model reaches them at a larger duty",
-)
 def test_diode_buck_output_below_diode_drop_is_reachable():
     """Volt-second balance (Erickson & Maksimovic ch. 3): V = (D Vg - D' VF) R/(R + r) reaches
     0.3 V at D = (0.3 (R + r)/R + VF)/(Vg + VF) with VF = 0.5 V, Vg = 36 V."""

@@ -150,11 +150,6 @@ def test_lossy_buck_dc_gain_closed_form():
     assert sp.simplify(symb.dc_gain - sp.diff(v, D)) == 0
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="symbolic.py declares s positive=True, so sympy.solve drops left-half-plane zeros "
-    "(the ESR zero -1/(rC C)) from SymbolicPlant.zeros",
-)
 def test_symbolic_zeros_include_esr_zero():
     """The ESR adds the left-half-plane zero s = -1/(rC C) (Erickson & Maksimovic 2nd ed.,
     sec. 8.2, from memory); the lossy buck Gvd numerator has exactly that root."""

@@ -114,18 +114,24 @@ def solve_duty(
         When the output cannot be reached at any duty cycle (names ``key`` and the range).
     """
     target = abs(v_out)
+    sgn = -1.0 if model.inverting else 1.0
+
+    def out(dd: float) -> float:
+        # output in the stage's own polarity (positive when it works as intended)
+        return sgn * float(dc_solution(model, dd, u)[1][0])
+
     grid = np.linspace(bounds[0], bounds[1], 397)
     mags = np.empty_like(grid)
     for i, dd in enumerate(grid):
         try:
-            mags[i] = abs(dc_solution(model, dd, u)[1][0])
+            mags[i] = out(dd)
         except np.linalg.LinAlgError:
             mags[i] = np.nan
     mags = np.where(np.isfinite(mags), mags, -np.inf)
     i_peak = int(np.argmax(mags))
     if i_peak not in (0, len(grid) - 1):
         res = optimize.minimize_scalar(
-            lambda dd: -abs(dc_solution(model, dd, u)[1][0]),
+            lambda dd: -out(dd),
             bounds=(grid[i_peak - 1], grid[i_peak + 1]),
             method="bounded",
             options={"xatol": 1e-12},
@@ -133,17 +139,17 @@ def solve_duty(
         d_peak, v_peak = float(res.x), float(-res.fun)
     else:
         d_peak, v_peak = float(grid[i_peak]), float(mags[i_peak])
-    v_low = abs(dc_solution(model, bounds[0], u)[1][0])
+    v_low = out(bounds[0])
     if not (v_low <= target <= v_peak):
         raise DesignError(
             f"|vout| = {target:.6g} V cannot be reached by the {model.topology} stage at "
-            f"vin = {u[0]:.6g} V with these losses: reachable range is {v_low:.4g} V to "
+            f"vin = {u[0]:.6g} V with these losses: reachable range is {max(v_low, 0):.4g} V to "
             f"{v_peak:.4g} V (duty {bounds[0]:g} to {d_peak:.4f})",
             key=key,
         )
     return float(
         optimize.brentq(
-            lambda dd: abs(dc_solution(model, dd, u)[1][0]) - target,
+            lambda dd: out(dd) - target,
             bounds[0],
             d_peak,
             xtol=1e-14,
@@ -437,7 +443,7 @@ class AveragedModel:
         s = 2j * np.pi * np.asarray(f_hz, dtype=float)
         n = a.shape[0]
         eye = np.eye(n)
-        out = np.array([c @ np.linalg.solve(si * eye - a, b) + d for si in np.atleast_1d(s)])
+        out = np.array([c @ np.linalg.solve(si * eye - a, b) + d for si in np.ravel(s)])
         return out.reshape(np.shape(f_hz))
 
 

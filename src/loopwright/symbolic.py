@@ -104,7 +104,8 @@ def symbolic_plant(topology: str, *, lossy: bool = False, rectifier: str = "diod
     """
     import sympy as sp
 
-    L, C, R, Vg, D, s = sp.symbols("L C R V_g D s", positive=True)
+    L, C, R, Vg, D = sp.symbols("L C R V_g D", positive=True)
+    s = sp.Symbol("s")  # complex frequency: zeros may lie in either half plane
     rL, rC, Ron, Rr, VF = sp.symbols("r_L r_C R_on R_r V_F", positive=True)
     syms = {"L": L, "C": C, "R": R, "V_g": Vg, "D": D, "s": s}
     if lossy:

@@ -185,7 +185,7 @@ def find_margins(
             )
         return values.reshape(1, -1)
 
-    return _find(batch, f_min_hz, f_max_hz, points_per_decade, single=True)[0]
+    return _find(batch, f_min_hz, f_max_hz, points_per_decade)[0]
 
 
 def find_margins_batch(
@@ -233,7 +233,7 @@ def find_margins_batch(
     .. [1] N. Anderson and A. Bjorck, "A new high order method of regula falsi type for
        computing a root of an equation", BIT 13, pp. 253-264, 1973.
     """
-    return _find(response, f_min_hz, f_max_hz, points_per_decade, single=False)
+    return _find(response, f_min_hz, f_max_hz, points_per_decade)
 
 
 # ----------------------------------------------------------------------------------------------
@@ -558,9 +558,7 @@ def _refine_roots(ev: _Evaluator, loops, kind, xa, xb, ta, tb) -> tuple[np.ndarr
     return np.where(use_b, xb, xa), np.where(use_b, tb, ta)
 
 
-def _find(
-    response: Response, f_min_hz: float, f_max_hz: float, ppd: float, *, single: bool
-) -> list[LoopMargins]:
+def _find(response: Response, f_min_hz: float, f_max_hz: float, ppd: float) -> list[LoopMargins]:
     _check_inputs(f_min_hz, f_max_hz, ppd)
     ev = _Evaluator(response)
     x_lo = math.log(2.0 * math.pi * f_min_hz)

@@ -216,6 +216,12 @@ def plant_phase_deg(plant_at_fc: complex) -> float:
     A plant at crossover lags (low-pass LC, delay, right-half-plane zero), so the wrapped angle
     ``+173 deg`` is read as ``-187 deg``. Pass the unwrapped phase explicitly where a plant
     leads.
+
+    References
+    ----------
+    .. [1] H. D. Venable, "The K factor: a new mathematical tool for stability analysis and
+       synthesis", Proc. Powercon 10, San Diego, 1983 (step 2 of the procedure: the plant
+       phase is taken unwrapped; recalled, not re-read).
     """
     ph = math.degrees(np.angle(complex(plant_at_fc)))
     return ph - 360.0 if ph > 0.0 else ph

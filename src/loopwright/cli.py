@@ -422,11 +422,38 @@ def _design_text(result) -> str:
     )
     if result.digital is not None:
         dg = result.digital
-        try:
-            out.append("")
-            out.append(f"digital controller: {dg.summary_text()}")
-        except AttributeError:
-            pass
+        o = dg.options
+        out.append("")
+        out.append(
+            f"digital controller: {o.method} at {e(o.sample_rate_hz, 'Hz')}, delay "
+            f"{o.delay_samples:g} samples, {o.number_format}; b = "
+            + ", ".join(f"{x:.6g}" for x in dg.controller.b)
+            + "; a = "
+            + ", ".join(f"{x:.6g}" for x in dg.controller.a)
+        )
+        rows = []
+        for label, lf in (
+            ("continuous, e^(-s Td)", dg.loop_continuous_delay),
+            ("sampled (z-domain)", dg.loop_z),
+        ):
+            stable = (
+                "-"
+                if lf.closed_loop_stable is None
+                else ("stable" if lf.closed_loop_stable else "UNSTABLE")
+            )
+            rows.append(
+                [
+                    label,
+                    e(lf.crossover_hz, "Hz"),
+                    f"{lf.phase_margin_deg:.1f}",
+                    f"{lf.gain_margin_db:.1f}",
+                    stable,
+                ]
+            )
+        out.append(table(["nominal loop", "crossover", "PM deg", "GM dB", "closed loop"], rows))
+        out.append(
+            f"phase lost to sampling and delay at crossover: {dg.phase_lost_at_fc_deg:.1f} deg"
+        )
     if result.warnings:
         out.append("")
         out.append("notes:")

@@ -394,9 +394,14 @@ def _choose_crossover(spec: DesignSpec, plant: PlantAnalysis, kind_hint: str, de
     return fc, reason, []
 
 
+def _passes(r: CornerResult) -> bool:
+    """The corner meets the targets with ideal parts and, where realised, rounded parts."""
+    return r.meets_targets and r.meets_targets_rounded is not False
+
+
 def _score(results: list[CornerResult]) -> tuple:
     """Order candidate designs: more corners passing, then more stable, then higher worst PM."""
-    passing = sum(r.meets_targets for r in results)
+    passing = sum(_passes(r) for r in results)
     stable = sum(bool(r.analysis and r.analysis.closed_loop_stable) for r in results)
     pms = [
         r.analysis.phase_margin_deg
@@ -526,6 +531,7 @@ def design(spec: DesignSpec, *, progress: Callable[[str], None] | None = None) -
     tried: list[str] = []
     first_fail: tuple | None = None
     fc0 = fc
+    realizing = spec.realization is not None and spec.realization.kind != "none"
     # voltage mode: do not push the crossover down onto the LC resonance (common practice)
     f0s = [cp.model.features().f0_hz or 0.0 for cp in plant.valid_corners()]
     f_floor = 2.0 * max(f0s, default=0.0)
@@ -545,31 +551,32 @@ def design(spec: DesignSpec, *, progress: Callable[[str], None] | None = None) -
                 tried.append(f"{kind}: {err}")
                 break
             say(f"proving {kind} at {len(plant.corners) + 1} corners")
-            results = _corner_results(spec, plant, comp, delay_s)
+            comp_r = None
+            if realizing:
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    comp_r = _realize(spec, comp)[1]
+            results = _corner_results(spec, plant, comp, delay_s, comp_r)
             cand = (comp, results, [str(w.message) for w in wrec], fc_k, pm_extra)
             if best is None or _score(results) > _score(best[1]):
                 best = cand
-            if all(r.meets_targets for r in results):
+            if all(_passes(r) for r in results):
                 break
             # robustness: aim the nominal design higher by the worst corner's shortfall, and
             # (crossover "auto") lower the crossover when a gain margin is short
+            loops = [
+                a for r in results for a in (r.analysis, r.analysis_rounded) if a is not None
+            ]
             short_pm = max(
                 (
-                    t.phase_margin_deg - r.analysis.phase_margin_deg
-                    for r in results
-                    if r.analysis is not None
-                    and r.analysis.closed_loop_stable
-                    and math.isfinite(r.analysis.phase_margin_deg)
+                    t.phase_margin_deg - a.phase_margin_deg
+                    for a in loops
+                    if a.closed_loop_stable and math.isfinite(a.phase_margin_deg)
                 ),
                 default=0.0,
             )
-            short_gm = any(
-                r.analysis is not None and r.analysis.gain_margin_db < t.gain_margin_db
-                for r in results
-            )
-            unstable = any(
-                r.analysis is not None and not r.analysis.closed_loop_stable for r in results
-            )
+            short_gm = any(a.gain_margin_db < t.gain_margin_db for a in loops)
+            unstable = any(not a.closed_loop_stable for a in loops)
             if short_pm > 0:
                 pm_extra += short_pm + PM_HEADROOM_DEG
             capped = t.phase_margin_deg + PM_HEADROOM_DEG + pm_extra > MAX_DESIGN_PM_DEG
@@ -584,7 +591,7 @@ def design(spec: DesignSpec, *, progress: Callable[[str], None] | None = None) -
         if best is None:
             continue
         cand = best
-        ok = all(r.meets_targets for r in cand[1])
+        ok = all(_passes(r) for r in cand[1])
         tried.append(
             f"{kind}: "
             + ("meets every corner" if ok else "fails at some corner")

@@ -106,6 +106,13 @@ def test_bad_design_exits_2_naming_the_key(tmp_path, capsys, case, text, key):
         assert out == ""
 
 
+def test_subnormal_esr_is_no_traceback(tmp_path, capsys):
+    f = write(tmp_path, edit('value = "100 uF"', 'value = "100 uF"\nesr = 1e-323'))
+    rc, out, err = run(capsys, "plant", f)
+    assert rc in (0, 2)
+    assert "Traceback" not in out + err
+
+
 def test_missing_file(tmp_path, capsys):
     rc, out, err = run(capsys, "plant", tmp_path / "nowhere.toml")
     assert rc == 2 and "nowhere.toml" in err and "no such file" in err
@@ -287,7 +294,9 @@ def test_json_values_follow_table_8_2(tmp_path, capsys, topo, vout):
 
 
 def test_json_corners_and_dcm_corner(tmp_path, capsys):
-    text = edit('iout = "3 A"', 'iout = "3 A"\niout_range = ["0.3 A", "3 A"]\nvin_range = ["30 V", "40 V"]')  # noqa: E501
+    text = edit(
+        'iout = "3 A"', 'iout = "3 A"\niout_range = ["0.3 A", "3 A"]\nvin_range = ["30 V", "40 V"]'
+    )
     text = edit("[modulator]", '[power_stage.rectifier]\nkind = "diode"\n\n[modulator]', text)
     f = write(tmp_path, text)
     rc, out, err = run(capsys, "plant", f, "--json")

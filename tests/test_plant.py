@@ -94,7 +94,9 @@ def test_to_dict_wiring(boost_analysis):
 
 
 def test_high_duty_corner_carries_a_note():
-    text = BOOST.replace('vout = "24 V"', 'vout = "150 V"').replace('vref = "1.2 V"', 'vref = "2 V"')
+    text = BOOST.replace('vout = "24 V"', 'vout = "150 V"').replace(
+        'vref = "1.2 V"', 'vref = "2 V"'
+    )
     with pytest.warns(ModelValidityWarning, match="above 0.9"):
         a = analyze_plant(parse_design(text))
     # ideal boost: D = 1 - 10/150 = 0.933 at low line

@@ -250,11 +250,15 @@ def test_line_range_decides_step_direction():
 
 def test_rectifier_keys_follow_the_kind():
     sync_vf = edit(
-        BASE, "[modulator]", '[power_stage.rectifier]\nkind = "synchronous"\nvf = "0.4 V"\n\n[modulator]'
+        BASE,
+        "[modulator]",
+        '[power_stage.rectifier]\nkind = "synchronous"\nvf = "0.4 V"\n\n[modulator]',
     )
     bad(sync_vf, "power_stage.rectifier.vf", "diode")
     diode_rds = edit(
-        BASE, "[modulator]", '[power_stage.rectifier]\nkind = "diode"\nrds_on = "5 mohm"\n\n[modulator]'
+        BASE,
+        "[modulator]",
+        '[power_stage.rectifier]\nkind = "diode"\nrds_on = "5 mohm"\n\n[modulator]',
     )
     bad(diode_rds, "power_stage.rectifier.rds_on", "synchronous")
     bad(
@@ -304,9 +308,7 @@ def test_corners_nominal_first_then_cartesian_product():
     # line x load x L x C extremes: 2 x 2 x 2 x 2
     assert len(rest) == 16
     expected = set(itertools.product((30.0, 42.0), (0.3, 3.0), (0.8, 1.2), (0.9, 1.1)))
-    got = {
-        (c.v_in, round(c.i_out, 12), round(c.l_scale, 12), round(c.c_scale, 12)) for c in rest
-    }
+    got = {(c.v_in, round(c.i_out, 12), round(c.l_scale, 12), round(c.c_scale, 12)) for c in rest}
     assert got == {(a, round(b, 12), round(c, 12), round(d, 12)) for a, b, c, d in expected}
     names = [c.name for c in cs]
     assert len(set(names)) == len(names)

@@ -531,5 +531,6 @@ def analyze_stage(
         k_crit=k_crit,
     )
     esr = params.r_esr
-    f_esr = 1 / (2 * math.pi * esr * params.c_out) if esr > 0 else None
+    tau_esr = esr * params.c_out
+    f_esr = 1 / (2 * math.pi * tau_esr) if tau_esr > 0 else None
     return AveragedModel(model=model, op=op, a=a, b=b, c=c, d=d, f_sw=f_sw, esr_zero_hz=f_esr)

@@ -272,7 +272,11 @@ class _Reader:
         self.used.add(k)
         if k not in self.data:
             if required:
-                raise DesignError("missing required key", key=self.key(k))
+                import difflib
+
+                near = difflib.get_close_matches(k, [str(x) for x in self.data], n=1)
+                hint = f" (found {near[0]!r}: a typo?)" if near else ""
+                raise DesignError(f"missing required key{hint}", key=self.key(k))
             return None
         return self.data[k]
 
@@ -409,6 +413,12 @@ def _power_stage(r: _Reader) -> PowerStage:
     i_out_range = r.pair("iout_range", "A") or (i_out, i_out)
     if i_out_range[0] < 0:
         raise DesignError("load currents must be >= 0 A", key=r.key("iout_range"))
+    if not (i_out_range[0] <= i_out <= i_out_range[1] * (1 + 1e-12)):
+        raise DesignError(
+            f"full load {format_eng(i_out, 'A')} lies outside iout_range "
+            f"[{format_eng(i_out_range[0], 'A')}, {format_eng(i_out_range[1], 'A')}]",
+            key=r.key("iout_range"),
+        )
     ind = r.table("inductor", required=True)
     inductance = ind.positive("value", "H", required=True)
     r_dcr = ind.nonneg("dcr", "ohm")

@@ -101,13 +101,18 @@ def test_mode_flips_at_k_equal_kcrit(topo_name, d):
     L, fs, C, vg = 20e-6, 200e3, 100e-6, 10.0
     r_crit = 2 * L * fs / k_crit_book(topo_name, d)
     for factor, mode in ((1.001, "dcm"), (0.999, "ccm")):
-        p = PowerStageParameters(inductance=L, c_out=C, g_load=1 / (r_crit * factor), rectifier="diode")
+        p = PowerStageParameters(
+            inductance=L, c_out=C, g_load=1 / (r_crit * factor), rectifier="diode"
+        )
         m = analyze_stage(TOPOLOGIES[topo_name], p, v_in=vg, v_out=1.0, f_sw=fs, duty=d)
         assert m.op.mode == mode
         assert (m.op.k < m.op.k_crit) == (mode == "dcm")
         # a synchronous rectifier conducts both ways: never DCM
         ps = PowerStageParameters(inductance=L, c_out=C, g_load=1 / (r_crit * factor))
-        assert analyze_stage(TOPOLOGIES[topo_name], ps, v_in=vg, v_out=1.0, f_sw=fs, duty=d).op.mode == "ccm"  # noqa: E501
+        assert (
+            analyze_stage(TOPOLOGIES[topo_name], ps, v_in=vg, v_out=1.0, f_sw=fs, duty=d).op.mode
+            == "ccm"
+        )
 
 
 def design_text(row, rectifier="diode"):

@@ -204,7 +204,9 @@ def boost_dcr(d):
     return analyze_stage(TOPOLOGIES["boost"], p, v_in=12.0, v_out=24.0, f_sw=200e3, duty=d)
 
 
-@pytest.mark.parametrize(("d", "m_exp", "eta"), [(0.5, 1.967213, 0.983607), (0.8, 4.528302, 0.905660)])
+@pytest.mark.parametrize(
+    ("d", "m_exp", "eta"), [(0.5, 1.967213, 0.983607), (0.8, 4.528302, 0.905660)]
+)
 def test_boost_dcr_conversion_ratio_and_efficiency(d, m_exp, eta):
     op = boost_dcr(d).op
     assert op.v_out / 12.0 == pytest.approx(m_exp, rel=1e-6)

@@ -4,10 +4,11 @@ Sources
 -------
 R. D. Middlebrook and S. Cuk, "A general unified approach to modelling switching-converter power
 stages", IEEE PESC Record, 1976, pp. 18-34; Int. J. Electronics 42(6):521-550, 1977: the averaged
-model ``A = D A1 + D' A2`` (likewise B, C, E), ``X = -A^-1 B U``, ``Bd = (A1 - A2) X + (B1 - B2) U``,
-``Ed = (C1 - C2) X``. The per-interval matrices with parasitics are from memory (journal citation
-confirmed, matrix formulas from memory). Parasitics inside averaged models: A. Davoudi and
-J. Jatskevich, IEEE Trans. Power Electron. 21(4):1142-1147, 2006. Lossy conversion ratio:
+model ``A = D A1 + D' A2`` (likewise B, C, E), ``X = -A^-1 B U``,
+``Bd = (A1 - A2) X + (B1 - B2) U``, ``Ed = (C1 - C2) X``. The per-interval matrices with
+parasitics are from memory (journal citation confirmed, matrix formulas from memory).
+Parasitics inside averaged models: A. Davoudi and J. Jatskevich, IEEE Trans. Power Electron.
+21(4):1142-1147, 2006. Lossy conversion ratio:
 R. W. Erickson and D. Maksimovic, *Fundamentals of Power Electronics*, 2nd ed., Kluwer 2001,
 ch. 3 (from memory).
 

@@ -15,7 +15,8 @@ R. D. Middlebrook and S. Cuk, IEEE PESC 1976 (canonical model). Formulas from me
 | buck-boost | (-D/D') / den_bb  | (s L/D'^2) / den_bb          |
 
 Zout is the impedance seen by a current injected into the output node with duty and line held.
-Identity (derived): at w0 the ideal Zout equals R in all three stages, and ``|Gvg(j w0)| = |Gg0| Q``.
+Identity (derived): at w0 the ideal Zout equals R in all three stages, and
+``|Gvg(j w0)| = |Gg0| Q``.
 
 Invented scenarios (ideal switches, no ESR/DCR): A buck 36 V, D = 1/3, R = 4 ohm, L = 22 uH,
 C = 100 uF; B boost 12 V, D = 0.5, R = 12 ohm, L = 47 uH, C = 220 uF; C buck-boost 9 V, D = 4/7,

@@ -424,3 +424,37 @@ def plot_nyquist(
     ax.set_title(title, loc="left", fontsize=11)
     ax.legend(fontsize=8, frameon=False, loc="lower left")
     return fig, ax
+
+
+def plot_waveforms(result, *, title: str | None = None):
+    """Switching waveforms of a simulation: inductor current, output voltage, duty.
+
+    Parameters
+    ----------
+    result : loopwright.simulate.SimulationResult
+        Its ``waveforms`` (the recorded last periods of the steady state); when the run
+        has a load or line step, that step's own waveforms are drawn instead.
+
+    Returns
+    -------
+    fig, axes
+        A matplotlib Figure with three stacked axes sharing a time axis in microseconds.
+    """
+    wf = result.waveforms
+    for step in (getattr(result, "load_step", None), getattr(result, "line_step", None)):
+        if step is not None and getattr(step, "waveforms", None) is not None:
+            wf = step.waveforms
+            break
+    fig, axes = _new(3, size=(7.2, 6.2))
+    t_us = (np.asarray(wf.t) - float(np.asarray(wf.t)[0])) * 1e6
+    specs = (
+        (axes[0], wf.i_l, "inductor current [A]"),
+        (axes[1], wf.v_out, "output voltage [V]"),
+        (axes[2], wf.duty, "duty [-]"),
+    )
+    for ax, y, label in specs:
+        ax.plot(t_us, y, color=PALETTE["nominal"], lw=1.1)
+        ax.set_ylabel(label)
+    axes[2].set_xlabel("time [us]")
+    axes[0].set_title(title or "switching waveforms", loc="left")
+    return fig, axes

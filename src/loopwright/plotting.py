@@ -458,3 +458,57 @@ def plot_waveforms(result, *, title: str | None = None):
     axes[2].set_xlabel("time [us]")
     axes[0].set_title(title or "switching waveforms", loc="left")
     return fig, axes
+
+
+def plot_measured_loop(
+    f_model_hz,
+    t_model,
+    f_meas_hz,
+    meas_mag_db,
+    meas_phase_deg,
+    *,
+    f_sw_hz: float | None = None,
+):
+    """Loop gain of the averaged model (curve) beside the switching model's injection points.
+
+    Parameters
+    ----------
+    f_model_hz : array_like
+        Frequencies of the model curve. [Hz]
+    t_model : array_like of complex
+        Model loop gain ``T(j 2 pi f)``.
+    f_meas_hz, meas_mag_db, meas_phase_deg : array_like
+        Injection measurement (``T = -Va/Vb``, Middlebrook 1975). [Hz], [dB], [deg]
+    f_sw_hz : float, optional
+        Shades the band above ``f_sw/2`` where the averaged model does not hold. [Hz]
+
+    Returns
+    -------
+    fig, axes
+    """
+    f = np.asarray(f_model_hz, dtype=float)
+    t = np.asarray(t_model, dtype=complex)
+    fig, axes = _new(2)
+    ph = _phase(t)
+    meas_ph = np.asarray(meas_phase_deg, dtype=float)
+    # put the measured phases on the model curve's branch
+    ref = np.interp(np.log(f_meas_hz), np.log(f), ph)
+    meas_ph = meas_ph + 360.0 * np.round((ref - meas_ph) / 360.0)
+    axes[0].semilogx(f, _db(t), color=PALETTE["nominal"], lw=1.6, label="averaged model")
+    axes[0].semilogx(f_meas_hz, meas_mag_db, "o", color=PALETTE["mark"], ms=5,
+                     label="switching model, injection")  # fmt: skip
+    axes[1].semilogx(f, ph, color=PALETTE["nominal"], lw=1.6)
+    axes[1].semilogx(f_meas_hz, meas_ph, "o", color=PALETTE["mark"], ms=5)
+    axes[0].axhline(0, color="0.4", lw=0.8)
+    axes[1].axhline(-180, color="0.4", lw=0.8)
+    if f_sw_hz:
+        for ax in axes:
+            ax.axvspan(f_sw_hz / 2, f[-1], color=PALETTE["shade"], lw=0)
+    axes[0].set_ylabel("|T| [dB]")
+    axes[1].set_ylabel("phase [deg]")
+    axes[1].set_xlabel("frequency")
+    axes[1].xaxis.set_major_formatter(EngFormatter(unit="Hz", sep=" "))
+    axes[1].xaxis.set_minor_formatter(NullFormatter())
+    axes[0].legend(loc="lower left", fontsize=8, frameon=False)
+    axes[0].set_title("loop gain: averaged model vs switching model", loc="left")
+    return fig, axes

@@ -21,7 +21,7 @@ def _cmd_report(args) -> int:
         warnings.simplefilter("ignore")
         result = design(spec)
     try:
-        index = write_report(result, out, force=args.force)
+        index = write_report(result, out, force=args.force, simulate=args.simulate)
     except FileExistsError as err:
         print(f"loopwright: error: {err}", file=sys.stderr)  # noqa: T201
         return 2
@@ -46,4 +46,9 @@ def add_report_verb(sub) -> None:
     r.add_argument("file", help="design file (TOML)")
     r.add_argument("-o", "--output", metavar="DIR", help="report folder (default reports/NAME/)")
     r.add_argument("--force", action="store_true", help="replace an existing report's files")
+    r.add_argument(
+        "--simulate",
+        action="store_true",
+        help="add the switching-level simulation against the averaged model (takes seconds)",
+    )
     r.set_defaults(func=_cmd_report)

@@ -29,9 +29,11 @@ import warnings
 from dataclasses import dataclass, field
 from typing import Literal
 
+from loopwright._checks import positive
 from loopwright.compensators.base import Compensator
 from loopwright.errors import DesignError, DesignWarning
 from loopwright.eseries import RoundingMode, round_to_series
+from loopwright.quantities import format_eng
 
 __all__ = [
     "CAPACITOR_RANGE_F",
@@ -51,37 +53,16 @@ CAPACITOR_RANGE_F = (10e-12, 10e-6)
 Network = Literal["op-amp", "ota"]
 
 
-def _positive(value, key: str) -> float:
-    try:
-        v = float(value)
-    except (TypeError, ValueError) as err:
-        raise DesignError(f"must be a positive number, got {value!r}", key=key) from err
-    if not (math.isfinite(v) and v > 0):
-        raise DesignError(f"must be finite and > 0, got {value!r}", key=key)
-    return v
-
 
 def _divider(h) -> float:
-    v = _positive(h, "h")
+    v = positive(h, "h")
     if v > 1.0:
         raise DesignError(f"divider ratio must be in (0, 1], got {h!r}", key="h")
     return v
 
 
 def _fmt(value: float, unit: str) -> str:
-    for scale, prefix in (
-        (1e6, "M"),
-        (1e3, "k"),
-        (1.0, ""),
-        (1e-3, "m"),
-        (1e-6, "u"),
-        (1e-9, "n"),
-        (1e-12, "p"),
-        (1e-15, "f"),
-    ):
-        if abs(value) >= scale:
-            return f"{value / scale:.4g} {prefix}{unit}"
-    return f"{value:.4g} {unit}"
+    return format_eng(value, unit)
 
 
 def _check_practical(components: dict[str, float], stacklevel: int) -> None:
@@ -253,7 +234,7 @@ def realize_opamp(comp: Compensator, r1: float, h: float = 1.0) -> Realization:
     """
     if not isinstance(comp, Compensator):
         raise DesignError(f"must be a Compensator, got {type(comp).__name__}", key="comp")
-    r1v = _positive(r1, "r1")
+    r1v = positive(r1, "r1")
     hv = _divider(h)
     w_net = hv * comp.w_i
     parts: dict[str, float] = {"R1": r1v}
@@ -321,7 +302,7 @@ def realize_ota(comp: Compensator, gm: float, h: float) -> Realization:
         raise DesignError(f"must be a Compensator, got {type(comp).__name__}", key="comp")
     if comp.kind != "type2":
         raise DesignError(f"the OTA network realises type2 only, got {comp.kind!r}", key="comp")
-    gmv = _positive(gm, "gm")
+    gmv = positive(gm, "gm")
     hv = _divider(h)
     wz, wp = comp.zeros_rad[0], comp.poles_rad[0]
     if not wp > wz:
@@ -410,7 +391,7 @@ def compensator_from_components(kind: str, components: dict[str, float], h: floa
     def part(name: str) -> float:
         if name not in components:
             raise DesignError(f"missing part {name} for a {kind} network", key="components")
-        return _positive(components[name], f"components.{name}")
+        return positive(components[name], f"components.{name}")
 
     if "gm" in components:
         if kind != "type2":

@@ -17,6 +17,7 @@ import warnings
 from dataclasses import dataclass
 from typing import Literal
 
+from loopwright._checks import positive
 from loopwright.compensators.base import Compensator
 from loopwright.errors import DesignError, DesignWarning
 
@@ -31,15 +32,6 @@ __all__ = [
 #: Names of the synthesis strategies: Venable's K factor and placement at the LC resonance.
 STRATEGIES: tuple[str, ...] = ("k-factor", "resonance")
 
-
-def _positive(value, key: str) -> float:
-    try:
-        v = float(value)
-    except (TypeError, ValueError) as err:
-        raise DesignError(f"must be a positive number, got {value!r}", key=key) from err
-    if not (math.isfinite(v) and v > 0):
-        raise DesignError(f"must be finite and > 0, got {value!r}", key=key)
-    return v
 
 
 def synthesize_resonance(
@@ -109,9 +101,9 @@ def synthesize_resonance(
     p = complex(plant_at_fc)
     if not (math.isfinite(p.real) and math.isfinite(p.imag)) or p == 0:
         raise DesignError(f"must be finite and non-zero, got {plant_at_fc!r}", key="plant_at_fc")
-    fc = _positive(f_c_hz, "f_c_hz")
-    f0 = _positive(f0_hz, "f0_hz")
-    fsw = _positive(f_sw_hz, "f_sw_hz")
+    fc = positive(f_c_hz, "f_c_hz")
+    f0 = positive(f0_hz, "f0_hz")
+    fsw = positive(f_sw_hz, "f_sw_hz")
     half = fsw / 2.0
     if f0 >= half:
         raise DesignError(f"must be below fsw/2 = {half:g} Hz, got {f0:g} Hz", key="f0_hz")
@@ -119,8 +111,8 @@ def synthesize_resonance(
         raise DesignError(f"must be below fsw/2 = {half:g} Hz, got {fc:g} Hz", key="f_c_hz")
     if zeros not in ("double", "staggered"):
         raise DesignError(f"must be 'double' or 'staggered', got {zeros!r}", key="zeros")
-    fp1 = half if f_esr_hz is None else min(_positive(f_esr_hz, "f_esr_hz"), half)
-    fp2 = half if f_rhp_hz is None else min(_positive(f_rhp_hz, "f_rhp_hz"), half)
+    fp1 = half if f_esr_hz is None else min(positive(f_esr_hz, "f_esr_hz"), half)
+    fp2 = half if f_rhp_hz is None else min(positive(f_rhp_hz, "f_rhp_hz"), half)
     fz = (f0, f0) if zeros == "double" else (0.5 * f0, f0)
     if fc < 2.0 * f0:
         warnings.warn(
@@ -174,7 +166,7 @@ def rhp_zero_phase_deg(f_hz: float, f_rhp_hz: float) -> float:
     f = float(f_hz)
     if not (math.isfinite(f) and f >= 0):
         raise DesignError(f"must be finite and >= 0, got {f_hz!r}", key="f_hz")
-    return -math.degrees(math.atan(f / _positive(f_rhp_hz, "f_rhp_hz")))
+    return -math.degrees(math.atan(f / positive(f_rhp_hz, "f_rhp_hz")))
 
 
 def crossover_ceiling(
@@ -211,15 +203,15 @@ def crossover_ceiling(
     .. [1] R. W. Erickson and D. Maksimovic, *Fundamentals of Power Electronics*, 2nd ed.,
        Kluwer, 2001, ch. 7 (averaging assumptions; recalled).
     """
-    fsw = _positive(f_sw_hz, "f_sw_hz")
-    swd = _positive(sw_divisor, "sw_divisor")
+    fsw = positive(f_sw_hz, "f_sw_hz")
+    swd = positive(sw_divisor, "sw_divisor")
     if swd < 2.0:
         raise DesignError(f"must be >= 2 (crossover below fsw/2), got {swd!r}", key="sw_divisor")
-    rd = _positive(rhp_divisor, "rhp_divisor")
+    rd = positive(rhp_divisor, "rhp_divisor")
     f_sw_lim = fsw / swd
     if f_rhp_hz is None:
         return CrossoverCeiling(f_sw_lim, "switching", 0.0)
-    fz = _positive(f_rhp_hz, "f_rhp_hz")
+    fz = positive(f_rhp_hz, "f_rhp_hz")
     f_rhp_lim = fz / rd
     if f_rhp_lim < f_sw_lim:
         return CrossoverCeiling(f_rhp_lim, "rhp-zero", rhp_zero_phase_deg(f_rhp_lim, fz))

@@ -83,6 +83,9 @@ def _plant_symbolic(spec, args) -> int:
     print("Symbolic control-to-output transfer function (state-space averaging on symbols)")
     print(symbolic_plant(ps.topology).pretty())
     print()
+    say = _progress(True)
+    if say:
+        say("deriving the lossy model on symbols (takes several seconds)")
     print(symbolic_plant(ps.topology, lossy=True, rectifier=ps.rectifier).pretty())
     return 0
 

@@ -67,7 +67,22 @@ class SymbolicPlant:
         """Human-readable block for the CLI."""
         import sympy
 
-        f = sympy.sstr
+        d = self.symbols["D"]
+        dp = sympy.Symbol("D'", positive=True)
+
+        def f(expr):
+            # written with the complement D' = 1 - D, the trade's habit for these stages
+            if expr is None:
+                return "none"
+            if self.lossy:  # expanding the lossy forms makes them longer, not clearer
+                return sympy.sstr(expr)
+            try:
+                e = sympy.factor_terms(sympy.expand(expr.subs(d, 1 - dp)))
+                e = sympy.simplify(e) if len(str(e)) < 400 else e
+            except (TypeError, ValueError, AttributeError):
+                e = expr
+            return sympy.sstr(e).replace("Abs(D')", "D'")
+
         kind = "lossy" if self.lossy else "ideal"
         lines = [
             f"{self.topology} ({kind}) control-to-output Gvd(s) = N(s)/Den(s)",
@@ -76,7 +91,8 @@ class SymbolicPlant:
             f"  Gvd(0) = {f(self.dc_gain)}",
             f"  w0     = {f(self.w0)}",
             f"  Q      = {f(self.q)}",
-            f"  RHP zero (rad/s) = {f(self.rhp_zero) if self.rhp_zero is not None else 'none'}",
+            f"  RHP zero (rad/s) = {f(self.rhp_zero)}",
+            *(["  (D' = 1 - D)"] if not self.lossy else []),
         ]
         return "\n".join(lines)
 

@@ -6,7 +6,9 @@ Augmented state ``w`` (one row per batch member)::
 
 * ``i_l, v_c``: power-stage states (the topology's :class:`~loopwright.topologies.Interval`
   equations, unchanged);
-* ``z``: states of an analog compensator driven by ``e = ref - H (v_out + s_1)``;
+* ``z``: states of an analog compensator driven by ``e = ref - H sigma (v_out + s_1)``, with
+  ``sigma`` the sense sign (:func:`sense_sign`: -1 for the inverting stage, whose error
+  amplifier senses the inverted output);
 * ``s_1 = A sin(w t), s_2 = A cos(w t)``: the injection oscillator (loop-gain measurement);
 * ``q_v, q_i, q_in``: running integrals of ``v_out``, ``i_l`` and ``i_in`` over the period
   (reset at each period start), which give exact period averages;
@@ -30,6 +32,33 @@ from .controllers import AnalogController
 
 ON, OFF, IDLE = 0, 1, 2
 _MAX_SEGMENTS = 8
+
+
+def sense_sign(model: SwitchedModel | object) -> float:
+    """Sign of the sensed output: -1 for an inverting stage, +1 otherwise.
+
+    The inverting buck-boost's output is negative; its error amplifier senses ``-v_out`` (an
+    inverted divider or a difference amplifier), so the loop is negative feedback with the
+    positive divider ``H = v_ref/|v_out|`` and a positive reference, as in the design flow,
+    whose loop gain is built from ``-Gvd``.
+
+    Parameters
+    ----------
+    model : SwitchedModel or Topology
+        Anything with an ``inverting`` flag.
+
+    Returns
+    -------
+    float
+        ``-1.0`` or ``1.0``.
+
+    References
+    ----------
+    .. [1] R. W. Erickson and D. Maksimovic, *Fundamentals of Power Electronics*, 2nd ed.,
+       Kluwer, 2001, sec. 9.5 (loop gain ``T = Gc Fm Gvd H``; the inverting stage's negative
+       ``Gvd(0)`` is compensated by an inverted sense).
+    """
+    return -1.0 if bool(getattr(model, "inverting", False)) else 1.0
 
 
 @dataclass(frozen=True)
@@ -141,6 +170,7 @@ class Circuit:
         self.diode = model.idle is not None
         intervals: list[Interval] = [model.on, model.off] + ([model.idle] if self.diode else [])
         s = lay.size
+        self.sense_sign = sgn = sense_sign(model)
         h = controller.sense_gain if controller is not None else 0.0
         self.rows_vout = np.zeros((len(intervals), s))
         self.rows_iin = np.zeros((len(intervals), s))
@@ -155,9 +185,9 @@ class Circuit:
             ri[lay.u] = iv.d[1]
             row_e = np.zeros(s)
             row_e[lay.ref] = 1.0
-            row_e -= h * rv
+            row_e -= h * sgn * rv
             if osc:
-                row_e[lay.s1] -= h
+                row_e[lay.s1] -= h * sgn
             mm = np.zeros((self.batch, s, s))
             mm[:, 0:2, 0:2] = iv.a
             mm[:, 0:2, lay.u] = iv.b

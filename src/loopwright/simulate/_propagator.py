@@ -316,20 +316,24 @@ def _root_in_cell(coef: np.ndarray, r_hi: np.ndarray) -> np.ndarray:
     tol = 2e-15 * max(float(np.max(r_hi)), 1e-300)
     for _ in range(60):
         val = _polyval(coef, r)
-        if np.all(val == 0.0):
+        zero = val == 0.0
+        if np.all(zero):
             break
         pos = val > 0
         lo = np.where(pos, r, lo)
-        hi = np.where(pos, hi, r)
+        hi = np.where(pos | zero, hi, r)
         der = _polyval(dcoef, r)
         with np.errstate(divide="ignore", invalid="ignore"):
             step = np.where(der != 0, val / der, np.nan)
         rn = r - step
-        bad = ~np.isfinite(rn) | (rn <= lo) | (rn >= hi)
+        # a Newton step may land on the bracket end it just moved (a step below one ulp):
+        # that is convergence, not a reason to bisect
+        bad = ~np.isfinite(rn) | (rn < lo) | (rn > hi)
         rn = np.where(bad, 0.5 * (lo + hi), rn)
-        done = np.abs(rn - r) <= tol
+        rn = np.where(zero, r, rn)  # an exact root stays put
+        done = zero | (np.abs(rn - r) <= tol) | (hi - lo <= tol)
         r = rn
-        if np.all(done) or np.all(hi - lo <= tol):
+        if np.all(done):
             break
     return r
 
@@ -360,7 +364,7 @@ def _root1(coef: list[float], r_hi: float) -> float:
         else:
             hi = r
         rn = r - v / d if d != 0.0 else math.nan
-        if not (lo < rn < hi):
+        if not (lo <= rn <= hi):
             rn = 0.5 * (lo + hi)
         if abs(rn - r) <= tol or hi - lo <= tol:
             return rn

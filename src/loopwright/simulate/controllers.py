@@ -10,8 +10,12 @@ Two kinds plug in:
   bit-exact fixed point, with optional ADC and DPWM quantisation and duty limits.
 
 Both carry the divider ``H`` and the reference ``v_ref``: the error is
-``e = v_ref - H v_sense`` with ``v_sense`` the output voltage (plus the injected signal when the
-loop gain is measured).
+``e = v_ref - H v_sense`` with ``v_sense`` the sensed output: ``v_out`` (plus the injected signal
+when the loop gain is measured) for the buck and the boost, ``-v_out`` for the inverting
+buck-boost, whose error amplifier senses the inverted output (an inverted divider or a
+difference amplifier). The simulator takes that sign from the topology
+(:func:`loopwright.simulate._circuit.sense_sign`), as the design flow builds the inverting
+stage's loop from ``-Gvd``; ``H``, ``v_ref`` and the compensator are the same either way.
 """
 
 from __future__ import annotations
@@ -66,8 +70,9 @@ class AnalogController:
     Attributes
     ----------
     a, b, c, d : numpy.ndarray
-        State space of ``Gc(s)`` from the sensed error ``e = v_ref - H v_out`` [V] to the
-        control voltage [V]; shapes (m, m), (m, 1), (1, m), (1, 1). ``m = 0`` is a pure gain.
+        State space of ``Gc(s)`` from the sensed error ``e = v_ref - H v_sense`` [V] (``v_sense``
+        is ``v_out``, or ``-v_out`` for the inverting stage) to the control voltage [V]; shapes
+        (m, m), (m, 1), (1, m), (1, 1). ``m = 0`` is a pure gain.
     modulator_gain : float
         ``Fm = 1/ramp``: duty per volt of control voltage. [1/V]
     sense_gain : float
@@ -321,8 +326,8 @@ class DigitalController:
     fixed_point : object, optional
         Integer coefficients and rules (``loopwright.discrete.FixedPointCoefficients``).
     adc_bits, adc_full_scale_v : int, float, optional
-        ADC of the sensed voltage ``H v_out``: round to ``full_scale/2^bits``, clip to
-        ``[0, full_scale]``. [bit], [V]
+        ADC of the sensed voltage ``H v_sense`` (``v_sense = -v_out`` for the inverting stage):
+        round to ``full_scale/2^bits``, clip to ``[0, full_scale]``. [bit], [V]
     pwm_counts : int, optional
         DPWM resolution: the duty is rounded to ``1/pwm_counts``.
     step_factory : callable, optional
@@ -435,7 +440,11 @@ class DigitalController:
         return _FloatStep(self.b, self.a, self.duty_min, self.duty_max, dtype)
 
     def sense(self, v_sense: float) -> float:
-        """Error fed to the difference equation for a sensed output ``v_sense`` [V]."""
+        """Error fed to the difference equation for a sensed output ``v_sense`` [V].
+
+        ``v_sense`` is the output voltage in the stage's own polarity (``-v_out`` for the
+        inverting stage); the simulator applies that sign before calling.
+        """
         x = self.sense_gain * v_sense
         if self.adc_bits is not None:
             lsb = float(self.adc_full_scale_v) / 2 ** int(self.adc_bits)

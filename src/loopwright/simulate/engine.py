@@ -48,7 +48,7 @@ import scipy.signal
 from ..averaging import analyze_stage, dc_solution
 from ..errors import DesignError, ModelValidityWarning
 from ..topologies import TOPOLOGIES, PowerStageParameters, Topology
-from ._circuit import ON, Circuit, Cycle
+from ._circuit import ON, Circuit, Cycle, sense_sign
 from ._propagator import expm
 from .controllers import AnalogController, ControllerModel, DigitalController
 from .results import LineStep, LoadStep, SimulationResult, StepResponse, Waveforms
@@ -108,13 +108,13 @@ def _closed_loop_matrices(avg, controller: AnalogController) -> tuple[np.ndarray
     """Averaged closed loop ``X' = A_cl X + b_inj v_inj`` (``X = [x, z]``) of an analog loop.
 
     ``v_inj`` is a voltage in series between the output and the sensing divider (the error is
-    ``e = -H (v_out + v_inj)`` about the operating point).
+    ``e = -H sigma (v_out + v_inj)`` about the operating point, ``sigma`` the sense sign).
     """
     a = avg.a
     bd = avg.b[:, 0:1]
     c = avg.c[0:1]
     ed = float(avg.d[0, 0])
-    h = controller.sense_gain
+    h = controller.sense_gain * sense_sign(avg.model)
     n = a.shape[0]
     fm = controller.modulator_gain
     ac, bc, cc, dc = controller.a, controller.b, controller.c, float(controller.d[0, 0])
@@ -135,8 +135,12 @@ def _closed_loop_matrices(avg, controller: AnalogController) -> tuple[np.ndarray
 
 
 def _loop_function(avg, controller: ControllerModel, t_s: float) -> Callable:
-    """Model loop gain ``T(j w)`` (averaged stage; digital: with its delay ``e^{-s delay Ts}``)."""
-    h = controller.sense_gain
+    """Model loop gain ``T(j w)`` (averaged stage; digital: with its delay ``e^{-s delay Ts}``).
+
+    The inverting stage's loop is built from ``-Gvd`` (the sensed output is ``-v_out``), the
+    sign convention of the design flow.
+    """
+    h = controller.sense_gain * sense_sign(avg.model)
     if isinstance(controller, AnalogController):
         fm = controller.modulator_gain
 
@@ -160,7 +164,7 @@ def _closed_loop_rho(avg, controller: ControllerModel, t_s: float) -> tuple[floa
     a = avg.a
     bd = avg.b[:, 0:1]
     c = avg.c[0:1]
-    h = controller.sense_gain
+    h = controller.sense_gain * sense_sign(avg.model)
     n = a.shape[0]
     if isinstance(controller, AnalogController):
         acl, _ = _closed_loop_matrices(avg, controller)
@@ -198,7 +202,9 @@ def _closed_loop_rho(avg, controller: ControllerModel, t_s: float) -> tuple[floa
     w = 2 * np.pi * np.logspace(0, math.log10(0.5 / t_s), 300)
     mag = np.abs(loop(w))
     below = np.flatnonzero((mag[:-1] >= 1) & (mag[1:] < 1))
-    f_c = float(w[below[0]] / (2 * np.pi)) if below.size else None
+    # the gain crossover is the last downward crossing: a loop whose magnitude dips below one
+    # between the integrator and the resonance (type III zeros below f0) crosses more than once
+    f_c = float(w[below[-1]] / (2 * np.pi)) if below.size else None
     return rho, f_c
 
 
@@ -392,6 +398,7 @@ class _Runner:
         v = float(w_s @ self.circuit.rows_vout[kind])
         if self.lay.n_osc:
             v += float(w_s[self.lay.s1])
+        v *= self.circuit.sense_sign  # the inverting stage senses -v_out
         ref = float(w_s[self.lay.ref])
         e = ref - (c.v_ref - c.sense(v))  # ADC path of the controller, ramped reference
         self.pending.append(c.actuate(self.step(e)))
@@ -521,7 +528,9 @@ def _soft_start(
             model = runner.circuit.model
             u = runner.w[0, runner.lay.u]
             _, y = dc_solution(model, 0.0, u)
-            ref0 = min(max(c.sense_gain * abs(float(y[0])), 0.0), c.v_ref)
+            # the sensed output with the switch held off (sign-corrected for the inverting stage)
+            sensed = runner.circuit.sense_sign * float(y[0])
+            ref0 = min(max(c.sense_gain * sensed, 0.0), c.v_ref)
             if not math.isfinite(ref0):
                 ref0 = 0.0
         except (np.linalg.LinAlgError, ValueError):
@@ -891,7 +900,8 @@ def simulate(
             params = replace(params, g_load=load_step.from_a / info.v_expected)
             info = _model_info(topo, params, v_in, f_sw, duty, controller)
         else:
-            i_load0 = float(load_step.from_a)
+            # the load current flows in the stage's own polarity: into the node of a negative rail
+            i_load0 = sense_sign(topo) * float(load_step.from_a)
     runner = _Runner(
         topo, params, v_in=v_in, f_sw=f_sw, duty=duty, controller=controller, x0=x0,
         i_load=i_load0,
@@ -922,7 +932,7 @@ def simulate(
             if load_step.kind == "resistive":
                 runner.set_params(replace(runner.params, g_load=load_step.to_a / info.v_expected))
             else:
-                runner.w[0, lay.u.start + 1] = float(load_step.to_a)
+                runner.w[0, lay.u.start + 1] = sense_sign(topo) * float(load_step.to_a)
             step = load_step
             kind, fv, tv = "load", float(load_step.from_a), float(load_step.to_a)
         else:

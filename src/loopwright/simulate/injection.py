@@ -2,15 +2,18 @@
 
 A sinusoidal source ``v_inj = A sin(w t)`` sits in series between the converter output (node
 ``a``) and the sensing divider (node ``b``), so ``v_b = v_a + v_inj`` and the controller acts on
-``v_b``. After the loop has settled, the complex amplitudes of ``v_a`` and ``v_b`` at ``f`` are
-taken by a single-bin DFT over whole injection periods, and ``T = -V_a / V_b`` (METHODS 10.2).
+``v_b`` (the inverting stage's error amplifier senses ``-v_b``, so the measured loop is the
+design flow's, built from ``-Gvd``). After the loop has settled, the complex amplitudes of
+``v_a`` and ``v_b`` at ``f`` are taken by a single-bin DFT over whole injection periods, and
+``T = -V_a / V_b`` (METHODS 10.2).
 The oscillator is part of the exact piecewise-linear state (two states, ``s_1' = w s_2``,
 ``s_2' = -w s_1``), so the injected signal is exact too.
 
 Frequencies are moved to the nearest ``f_sw p/q`` (within 2 %), so that a window of ``q``
 switching periods holds exactly ``p`` injection periods and the switching ripple, periodic in
 the window, leaves the DFT bin alone. All frequencies run as one batch: every member has its
-own oscillator, and each switching period is advanced for all members at once.
+own oscillator, and each switching period is advanced for all members at once; a member leaves
+the batch when its window is complete.
 
 References
 ----------
@@ -42,6 +45,7 @@ from .engine import (
     _loop_function,
     _model_info,
     _positive,
+    _quantisation_floor,
     _run_to_steady,
     _Runner,
     _soft_start,
@@ -73,7 +77,8 @@ class LoopGainMeasurement:
         ``T = -V_a/V_b`` from the switching simulation.
     model : ndarray of complex
         Averaged-model loop gain at ``f_hz`` (analog ``Gc Fm Gvd H``; digital
-        ``Gc(z) Gvd H e^{-s delay Ts}``).
+        ``Gc(z) Gvd H e^{-s delay Ts}``; ``-Gvd`` for the inverting stage, as in the design
+        flow).
     amplitude_v : ndarray
         Injection amplitude used at each frequency. [V]
     cycles : int
@@ -298,7 +303,8 @@ def loop_gain_by_injection(
     ramp = _soft_start(runner, info, None, max_cycles)
     steady, _, _ = _run_to_steady(
         runner, info, max_cycles=max_cycles, tol=1e-6, record_cycles=20, ramp_cycles=ramp,
-        floor=0.0, progress=progress, progress_span=(0.0, 0.3),
+        floor=_quantisation_floor(controller, info, v_in), progress=progress,
+        progress_span=(0.0, 0.3),
     )  # fmt: skip
     if not steady:
         raise DesignError(
@@ -373,6 +379,11 @@ def loop_gain_by_injection(
     acc = np.zeros((b, 2), dtype=complex)
     tables = _functional_tables(circuit)
     every = max(1, total // 50)
+    # members still running (batch indices); a member leaves the batch once its DFT window is
+    # complete, so the long low-frequency windows finish on a small batch (one row: the
+    # scalar period of Circuit.cycle)
+    live = members.copy()
+    end = n_settle + n_meas
     for k in range(total):
         t_on = None
         if analog:
@@ -381,26 +392,35 @@ def loop_gain_by_injection(
                 t_on = np.clip(d, 0.0, controller.duty_max) * ts
         else:
             if n_delay == 0:
-                _digital_samples(circuit, controller, w, None, 0.0, members, steps, pendings)
+                _digital_samples(circuit, controller, w, None, 0.0, live, steps, pendings)
             t_on = np.array([pq.popleft() for pq in pendings]) * ts
-        cyc = circuit.cycle(w, members, t_on)
+        cyc = circuit.cycle(w, live, t_on)
         if not analog and n_delay > 0:
-            _digital_samples(circuit, controller, w, cyc, phi * ts, members, steps, pendings)
-        measuring = (k >= n_settle) & (k < n_settle + n_meas)
+            _digital_samples(circuit, controller, w, cyc, phi * ts, live, steps, pendings)
+        measuring = k >= n_settle[live]
         if np.any(measuring):
             rows = np.flatnonzero(measuring)
+            ids = live[rows]
             sub = Cycle(
                 cyc.w_end[rows], cyc.t_on[rows], cyc.seg_kind[rows], cyc.seg_t0[rows],
                 cyc.seg_w0[rows], cyc.dcm[rows],
             )  # fmt: skip
-            vals = _sample_functionals(circuit, tables, sub, members[rows], times)
+            vals = _sample_functionals(circuit, tables, sub, ids, times)
             va = vals[:, :, 0]
             vb = va + vals[:, :, 1]
-            tt = (k - n_settle[rows])[:, None] * ts + times[None, :]
-            ph = np.exp(-1j * omegas[rows, None] * tt)
-            acc[rows, 0] += np.sum(va * ph, axis=1)
-            acc[rows, 1] += np.sum(vb * ph, axis=1)
+            tt = (k - n_settle[ids])[:, None] * ts + times[None, :]
+            ph = np.exp(-1j * omegas[ids, None] * tt)
+            acc[ids, 0] += np.sum(va * ph, axis=1)
+            acc[ids, 1] += np.sum(vb * ph, axis=1)
         w = cyc.w_end
+        keep = end[live] > k + 1
+        if not np.all(keep):
+            live, w = live[keep], w[keep]
+            if not analog:
+                steps = [st for st, kp in zip(steps, keep, strict=True) if kp]
+                pendings = [pq for pq, kp in zip(pendings, keep, strict=True) if kp]
+            if live.size == 0:
+                break
         if progress is not None and k % every == 0:
             progress(0.3 + 0.7 * k / total)
     if progress is not None:
@@ -427,7 +447,7 @@ def _digital_samples(circuit, controller, w, cyc, t_sample, members, steps, pend
         wpts, kind = circuit.evaluate(cyc, members, np.array([t_sample]))
         ws = wpts[:, 0]
         vout = np.einsum("bs,bs->b", ws, circuit.rows_vout[kind[:, 0]])
-    vb = vout + ws[:, lay.s1]
+    vb = circuit.sense_sign * (vout + ws[:, lay.s1])  # sensed: -v_b for the inverting stage
     for i in range(w.shape[0]):
         ref = float(ws[i, lay.ref])
         e = ref - (controller.v_ref - controller.sense(float(vb[i])))

@@ -26,7 +26,8 @@ class LoadStep:
         ``"resistive"``: the load conductance changes so that the current at the regulated
         output (``v_ref/H`` in closed loop, the averaged output in open loop) goes from
         ``from_a`` to ``to_a``; ``"current"``: the resistive load of the stage is kept and an
-        extra current ``to_a - from_a`` is drawn (the ``i_load`` input).
+        extra current ``to_a - from_a`` is drawn (the ``i_load`` input; for the inverting
+        stage the current flows in its own polarity, into the negative output node).
     settle_band_v : float, optional
         Half-width of the settling band. Default: 2 % of the peak deviation. [V]
     max_cycles : int, optional

@@ -241,3 +241,14 @@ def test_report_simulation_section_agrees_with_model(tmp_path):
         r"largest difference from the averaged model ([0-9.]+) dB and ([0-9.]+) deg", html
     )
     assert m and float(m.group(1)) < 1.5 and float(m.group(2)) < 8.0
+
+
+def test_inverting_load_step_moves_output_toward_zero():
+    """Physical law (charge balance at the output node): a heavier load on a negative rail
+    lets the output rise toward 0 V before the loop recovers, as the switching simulation
+    shows; the averaged model's load step must have the same sign."""
+    from loopwright.closed_loop import design_steps
+
+    example = Path(__file__).resolve().parents[1] / "examples" / "glacier-probe-inverter.toml"
+    steps = design_steps(design(load_design(example)))
+    assert steps.load.peak_deviation > 0

@@ -436,6 +436,7 @@ def design_steps(result, *, n_points: int = 4001) -> ClosedLoopSteps | None:
     di = hi - lo if hi > lo else 0.5 * ps.i_out
     vlo, vhi = ps.v_in_range
     dv = vhi - vlo if vhi > vlo else 0.1 * ps.v_in
-    load = disturbance_step(stage, k, "i_load", di, t_end_s=t_end, n_points=n_points)
+    # a heavier load on a negative rail pushes current INTO the output node (i_load < 0)
+    load = disturbance_step(stage, k, "i_load", sign * di, t_end_s=t_end, n_points=n_points)
     line = disturbance_step(stage, k, "v_in", dv, t_end_s=t_end, n_points=n_points)
     return ClosedLoopSteps(ref, load, line)

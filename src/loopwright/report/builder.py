@@ -378,7 +378,8 @@ def _context(result, figures: Sequence[Figure], steps: ClosedLoopSteps | None) -
             step_rows.append(
                 [
                     f"{x.label} step",
-                    _e(x.step, u),
+                    _e(abs(x.step), u)
+                    + (" (into the negative rail)" if x.step < 0 and u == "A" else ""),
                     "-",
                     _e(x.peak_deviation, "V"),
                     _e(x.peak_time_s, "s"),

@@ -17,11 +17,20 @@ def _cmd_report(args) -> int:
 
     spec = load_design(args.file)
     out = Path(args.output) if args.output else Path("reports") / spec.name
+    from ..cli import _progress, _progress_bar
+
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        result = design(spec)
+        result = design(spec, progress=_progress(True))
+    say = _progress(True)
+    if say:
+        say(
+            "drawing the figures" + (" and simulating the switching stage" if args.simulate else "")
+        )
     try:
-        index = write_report(result, out, force=args.force, simulate=args.simulate)
+        index = write_report(
+            result, out, force=args.force, simulate=args.simulate, progress=_progress_bar(True)
+        )
     except FileExistsError as err:
         print(f"loopwright: error: {err}", file=sys.stderr)  # noqa: T201
         return 2

@@ -289,3 +289,119 @@ def test_pole_verdict_agrees_with_margin_verdict(l_scale, c_scale, r_load, gain_
     # negative real axis left of -1 without the crossings cancelling
     margin_verdict = m.gain_reduction_margin_db is None or m.conditionally_stable
     assert res.closed_loop_stable == margin_verdict
+
+
+# -- poles and zeros handed to the margin search ----------------------------------------------
+def _match_roots(x, y, rel):
+    """Each root of ``y`` has its own root of ``x`` within ``rel * max(1, max|y|)``."""
+    x = list(np.asarray(x, dtype=complex))
+    y = np.asarray(y, dtype=complex)
+    assert len(x) == y.size
+    tol = rel * max(1.0, float(np.max(np.abs(y)))) if y.size else 0.0
+    for root in y:
+        j = int(np.argmin([abs(root - v) for v in x]))
+        assert abs(root - x.pop(j)) <= tol
+
+
+@pytest.mark.parametrize("n, with_d", [(1, False), (2, False), (2, True), (3, False), (4, True)])
+def test_plant_singular_points_match_python_control(n, with_d):
+    """Poles and finite zeros of each plant (python-control ``poles``/``zeros``); the zero
+    list may carry extra zeros at the origin (relative degree), nothing else."""
+    from loopwright.loop import _ModalPlant
+
+    rng = np.random.default_rng(20 + n)
+    a, b, c, d = random_batch(rng, k=5, n=n)
+    if not with_d:
+        d = np.zeros(5)
+    points = _ModalPlant(a, b, c, d).singular_points()
+    assert points.shape == (5, 2 * n)
+    for i in range(5):
+        sys = control.ss(a[i], b[i][:, None], c[i][None, :], d[i])
+        _match_roots(points[i, :n], sys.poles(), rel=1e-9)
+        zeros, ref = points[i, n:], np.asarray(sys.zeros())
+        scale = float(np.max(np.abs(np.linalg.eigvals(a[i]))))
+        extra = np.sort(np.abs(zeros))[: n - ref.size]
+        assert np.all(extra <= 1e-9 * scale)
+        _match_roots(zeros[np.argsort(np.abs(zeros))[n - ref.size :]], ref, rel=1e-8)
+
+
+def test_buck_singular_points_and_esr_zero():
+    """Buck control-to-output: the LC pair and the ESR zero at -1/(R_esr C) (Erickson &
+    Maksimovic 2nd ed., sec. 8.2 and Table 8.2 (buck Gvd); ESR zero from memory)."""
+    from loopwright.loop import _ModalPlant
+
+    a, b, c, d = buck(22e-6, 100e-6, 30e-3, 4.0, 36.0)
+    points = _ModalPlant(a, b, c, d).singular_points()[0]
+    _match_roots(points[:2], np.linalg.eigvals(a[0]), rel=1e-12)
+    zeros = points[2:][np.argsort(np.abs(points[2:]))]
+    assert abs(zeros[0]) < 1e-6
+    assert zeros[1] == pytest.approx(-1.0 / (30e-3 * 100e-6), rel=1e-9)
+
+
+def test_curvature_and_phase_slope_bounds_hold_on_sampled_loops():
+    """The bounds on |d^2 ln T/d(ln w)^2| and on the phase slope that let the margin search
+    decide intervals without sampling them hold against finite differences of
+    python-control's frequency response (lightly damped plants, type III, a delay)."""
+    import scipy.linalg
+
+    from loopwright.loop import _loop_response, _ModalPlant
+    from loopwright.margins import _BOUND_SAFETY, _Bounds
+
+    rng = np.random.default_rng(11)
+    k, n = 12, 5
+    a = np.zeros((k, n, n))
+    for i in range(k):
+        w0 = 10 ** rng.uniform(3, 5.5, 2)
+        q = 10 ** rng.uniform(0.5, 2.5, 2)
+        blocks = [np.array([[0, w], [-w, -w / qq]]) for w, qq in zip(w0, q, strict=True)]
+        m = scipy.linalg.block_diag(*blocks, [[-(10 ** rng.uniform(2, 6))]])
+        t = rng.normal(size=(n, n)) + 3 * np.eye(n)
+        a[i] = t @ m @ np.linalg.inv(t)
+    b, c = rng.normal(size=(k, n)), rng.normal(size=(k, n))
+    comp = Compensator("type3", 3e4, (2e3, 2e4), (2e5, 2e6), strategy="manual")
+    delay = 3e-7
+    response = _loop_response(_ModalPlant(a, b, c, np.zeros(k)), comp, delay)
+    bounds = _Bounds(response.singularities, k)
+    assert not np.any(bounds.unknown)
+    x_nodes = np.linspace(math.log(2 * math.pi * 10), math.log(2 * math.pi * 1e6), 41)
+    w_nodes = np.exp(x_nodes)
+    m_shared, r_shared = bounds.shared_terms(w_nodes)
+    m_bound, r_bound = bounds.grid(m_shared, r_shared, w_nodes)
+    gc = comp.to_control()
+    worst_m = worst_r = 0.0
+    for i in range(k):
+        sys = gc * control.ss(a[i], b[i][:, None], c[i][None, :], 0.0)
+        for j in range(x_nodes.size - 1):
+            xs = np.linspace(x_nodes[j], x_nodes[j + 1], 129)
+            ws = np.exp(xs)
+            lt = np.log(sys(1j * ws) * np.exp(-1j * ws * delay))
+            lt = lt.real + 1j * np.unwrap(lt.imag)
+            hx = xs[1] - xs[0]
+            curv = np.abs(lt[2:] - 2 * lt[1:-1] + lt[:-2]) / hx**2
+            slope = np.abs(np.diff(lt.imag)) / hx
+            worst_m = max(worst_m, curv.max() / (m_bound[j, i] / _BOUND_SAFETY))
+            worst_r = max(worst_r, slope.max() / (r_bound[j, i] / _BOUND_SAFETY))
+    assert worst_m <= 1.0
+    assert worst_r <= 1.0
+    assert worst_m > 0.3 and worst_r > 0.3  # the bounds are not vacuous
+
+
+def test_margins_of_a_defective_plant_beside_ordinary_ones():
+    """A Jordan-block plant (no modal form, poles and zeros not handed to the margin search)
+    in a batch with ordinary plants: every loop matches python-control."""
+    rng = np.random.default_rng(5)
+    a, b, c, d = random_batch(rng, k=24, n=3)  # large enough for the coarse pass
+    a[1] = a[7] = np.array([[-1e3, 1e3, 0.0], [0.0, -1e3, 1e3], [0.0, 0.0, -1e3]])
+    d[:] = 0.0
+    comp = Compensator("type3", 3e3, (2e3, 2e4), (2e5, 2e6), strategy="manual")
+    results = analyze_loops(a, b, c, d, comp, f_min_hz=1.0, f_max_hz=1e7)
+    for i, res in enumerate(results):
+        sys = _control_loop(a[i], b[i], c[i], d[i], comp)
+        _gm, pm, _sm, wpc, wgc, _ws = control.stability_margins(sys, returnall=True)
+        for found, ref in (
+            (res.margins.gain_crossovers_hz, wgc),
+            (res.margins.phase_crossovers_hz, wpc),
+        ):
+            ref = np.sort(np.asarray(ref))
+            ref = ref[(ref > 2 * math.pi) & (ref < 2 * math.pi * 1e7)]
+            assert found == pytest.approx(ref / (2 * math.pi), rel=1e-9)

@@ -311,3 +311,114 @@ def test_compensator_response_shape_is_accepted():
     m = find_margins(comp.freqresp, 1.0, 1e5)
     assert m.crossover_hz == pytest.approx(1e3 / (2 * math.pi), rel=1e-12)
     assert m.phase_margin_deg == pytest.approx(90.0, abs=1e-9)
+
+
+# -- batches that list their poles and zeros: intervals decided by bounds on ln T -------------
+def _resonant_plant(w_r, q):
+    """P = w_r^2 / (s^2 + (w_r/q) s + w_r^2) as a state-space model (one loop)."""
+    a = np.array([[0.0, 1.0], [-(w_r**2), -w_r / q]])
+    return a, np.array([0.0, w_r**2]), np.array([1.0, 0.0]), 0.0
+
+
+class _Counting:
+    """Forwards a batch response and its optional protocol, counting evaluated points."""
+
+    def __init__(self, response):
+        self.response, self.points = response, 0
+        self.singularities = response.singularities
+
+    def __call__(self, omega):
+        self.points += np.size(omega)
+        return self.response(omega)
+
+    def pointwise(self, loops, omega):
+        self.points += np.size(omega)
+        return self.response.pointwise(loops, omega)
+
+    def on_grid(self, loops, index, omega_grid):
+        self.points += np.size(index)
+        return self.response.on_grid(loops, index, omega_grid)
+
+
+def test_gain_pairs_one_percent_apart_beside_q50_resonances_with_the_coarse_pass():
+    """Two gain crossings about 1 % apart on the flank of a Q = 50 resonance (peak |T| = 1.1,
+    1 dB): python-control finds three crossings per loop; the batch search, which decides
+    most of the grid from the plants' poles and zeros, finds the same three in each of 32
+    loops whose resonances sit on grid points, between them, on points of the first
+    5-per-decade pass and inside its intervals."""
+    from loopwright.loop import _loop_response, _ModalPlant
+
+    f_min, f_max = 10.0, 1e6
+    x = _grid(f_min, f_max)
+    q = 50.0
+    delta = 0.005  # crossings at w_r (1 -+ delta) approximately: 1 % apart
+    place = np.concatenate([[0.0, 0.5, 20.0, 20.5, 7.0, 39.5], np.linspace(0.1, 39.9, 26)])
+    w_r = np.exp(x[640] + place * (x[1] - x[0]))  # 640: a point of the first pass
+    k = place.size
+    a = np.zeros((k, 2, 2))
+    a[:, 0, 1] = 1.0
+    a[:, 1, 0] = -(w_r**2)
+    a[:, 1, 1] = -w_r / q
+    b = np.zeros((k, 2))
+    b[:, 1] = w_r**2
+    # T = (w_ref / s) P with the loop gain in c: |T| peaks at 1.1 beside each resonance
+    w_ref = 1e3
+    c = np.zeros((k, 2))
+    c[:, 0] = w_r * math.sqrt(4 * delta**2 + 1 / q**2) / w_ref
+    comp = Compensator("type1", w_ref, strategy="manual")
+    results = analyze_loops(a, b, c, np.zeros(k), comp, f_min_hz=f_min, f_max_hz=f_max)
+    for i, res in enumerate(results):
+        sys = comp.to_control() * control.ss(a[i], b[i][:, None], c[i][None, :], 0.0)
+        _gm, pm, _wpc, wgc = _control_all(sys)
+        assert len(wgc) == 3
+        found = res.margins
+        assert found.gain_crossovers_hz == pytest.approx(np.sort(wgc) / (2 * math.pi), rel=1e-9)
+        assert found.phase_margins_deg == pytest.approx(pm[np.argsort(wgc)], abs=1e-7)
+        upper = found.gain_crossovers_hz[1:]
+        assert upper[1] / upper[0] - 1 == pytest.approx(0.01, rel=0.1)
+    # the same search through the batch interface evaluates a small part of the grid
+    counting = _Counting(_loop_response(_ModalPlant(a, b, c, np.zeros(k)), comp, 0.0))
+    again = find_margins_batch(counting, f_min, f_max)
+    for res, m in zip(results, again, strict=True):
+        assert m.gain_crossovers_hz == pytest.approx(res.margins.gain_crossovers_hz, rel=1e-12)
+    assert counting.points < 0.2 * k * x.size
+
+
+def _near_touching_batch(rng, k):
+    """Lightly damped plants (Q 5 ... 300) with an extra real pole; integrator gains put the
+    resonance peak of |T| within +-3 % of 1, so the gain touches 0 dB or dips through it twice
+    within the resonance."""
+    w0 = 2 * np.pi * 10 ** rng.uniform(3, 4.5, k)
+    q = 10 ** rng.uniform(0.7, 2.5, k)
+    p_real = w0 * 10 ** rng.uniform(0.3, 2, k)
+    a = np.zeros((k, 3, 3))
+    a[:, 0, 1] = 1.0
+    a[:, 1, 0] = -(w0**2)
+    a[:, 1, 1] = -w0 / q
+    a[:, 1, 2] = w0**2
+    a[:, 2, 2] = -p_real
+    b = np.zeros((k, 3))
+    b[:, 2] = p_real
+    c = np.zeros((k, 3))
+    c[:, 0] = 1.0
+    w_i = w0 / q * 10 ** rng.uniform(-0.013, 0.013, k)
+    return (a, b, c, np.zeros(k)), w_i
+
+
+def test_batch_search_finds_every_crossing_python_control_finds_near_touching_resonances():
+    rng = np.random.default_rng(3)
+    (a, b, c, d), w_i = _near_touching_batch(rng, 60)
+    w_ref = 1e3  # the loop gain goes into c: one compensator for the batch
+    comp = Compensator("type1", w_ref, strategy="manual")
+    c = c * (w_i / w_ref)[:, None]
+    results = analyze_loops(a, b, c, d, comp, f_min_hz=10.0, f_max_hz=1e7)
+    counts = []
+    for i, res in enumerate(results):
+        sys = comp.to_control() * control.ss(a[i], b[i][:, None], c[i][None, :], d[i])
+        _gm, _pm, wpc, wgc = _control_all(sys)
+        found = res.margins
+        for crossings, ref in ((found.gain_crossovers_hz, wgc), (found.phase_crossovers_hz, wpc)):
+            ref = np.sort(ref[(ref > 2 * math.pi * 10.0) & (ref < 2 * math.pi * 1e7)])
+            assert crossings == pytest.approx(ref / (2 * math.pi), rel=1e-9)
+        counts.append(len(found.gain_crossovers_hz))
+    assert counts.count(3) >= 10  # pairs beside the resonance are well represented

@@ -564,9 +564,7 @@ def design(spec: DesignSpec, *, progress: Callable[[str], None] | None = None) -
                 break
             # robustness: aim the nominal design higher by the worst corner's shortfall, and
             # (crossover "auto") lower the crossover when a gain margin is short
-            loops = [
-                a for r in results for a in (r.analysis, r.analysis_rounded) if a is not None
-            ]
+            loops = [a for r in results for a in (r.analysis, r.analysis_rounded) if a is not None]
             short_pm = max(
                 (
                     t.phase_margin_deg - a.phase_margin_deg

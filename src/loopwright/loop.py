@@ -12,8 +12,8 @@ scalar ``d``) is accepted as a batch of one.
 
 Frequency responses use the modal form: each ``a[i]`` is diagonalised once, after which
 ``P(j w) = d + sum_m r_m / (j w - lambda_m)`` costs ``O(k n)`` per frequency. Corners whose
-eigenvector matrix is ill-conditioned (near-defective ``a``) fall back to solving
-``(j w I - a) x = b`` directly.
+eigenvector matrix is ill-conditioned (near-defective ``a``; Frobenius-norm condition number
+above 1e8) fall back to solving ``(j w I - a) x = b`` directly.
 
 Stability is decided from the closed-loop poles, never from the margins.
 """
@@ -27,7 +27,7 @@ import numpy as np
 
 from loopwright.compensators.base import Compensator
 from loopwright.errors import DesignError
-from loopwright.margins import LoopMargins, find_margins_batch
+from loopwright.margins import LoopMargins, _frozen_instances, find_margins_batch
 
 __all__ = [
     "ClosedLoopResponses",
@@ -46,6 +46,9 @@ __all__ = [
 ]
 
 _MODAL_COND_LIMIT = 1e8
+# zeros are trusted (for the margin search's curvature bound) when d, or the first nonzero
+# Markov parameter, is at least this fraction of its scale
+_ZERO_TRUST = 1e-6
 DEFAULT_PADE_ORDER = 6
 
 
@@ -85,6 +88,75 @@ def _as_batch(a, b, c, d) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarra
     return a, b, c, d
 
 
+def _small_eigvals(mats: np.ndarray) -> np.ndarray:
+    """Eigenvalues of a stack of real square matrices; closed form up to 2 x 2.
+
+    For 2 x 2: ``tr/2 +- sqrt((tr/2)^2 - det)`` with the discriminant formed as
+    ``((a - d)/2)^2 + b c`` (no cancellation between the trace and determinant), and the
+    smaller real root as ``det / larger`` (no cancellation in the sum).
+    """
+    n = mats.shape[-1]
+    if n == 1:
+        return mats[:, :, 0].astype(complex)
+    if n != 2:
+        return np.linalg.eigvals(mats).astype(complex)
+    a, b, c, d = mats[:, 0, 0], mats[:, 0, 1], mats[:, 1, 0], mats[:, 1, 1]
+    half = 0.5 * (a + d)
+    disc = (0.5 * (a - d)) ** 2 + b * c
+    root = np.sqrt(np.abs(disc))
+    out = np.empty((mats.shape[0], 2), dtype=complex)
+    cplx = disc < 0.0
+    out[:, 0] = np.where(cplx, half + 1j * root, 0.0)
+    out[:, 1] = np.where(cplx, half - 1j * root, 0.0)
+    real = np.nonzero(~cplx)[0]
+    if real.size:
+        big = half[real] + np.copysign(root[real], half[real])
+        det = a[real] * d[real] - b[real] * c[real]
+        with np.errstate(all="ignore"):
+            small = np.where(big != 0.0, det / big, 0.0)
+        out[real, 0] = big
+        out[real, 1] = small
+    return out
+
+
+def _small_eig(mats: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Eigenvalues and unit eigenvectors (columns) of a stack of real square matrices.
+
+    Closed form for many 2 x 2 (eigenvalues as in :func:`_small_eigvals`; for each eigenvalue
+    the larger of the two null vectors read off the rows of ``A - lambda I``), LAPACK
+    otherwise.
+    A defective 2 x 2 gets two parallel vectors, like LAPACK's.
+    """
+    if mats.shape[-1] != 2 or mats.shape[0] < 32:  # LAPACK is quicker for a few
+        return np.linalg.eig(mats)
+    lam = _small_eigvals(mats)
+    a, b, c, d = (mats[:, i, j, None] for i, j in ((0, 0), (0, 1), (1, 0), (1, 1)))
+    # (A - lam I) v = 0: v = (b, lam - a) from the first row, (lam - d, c) from the second
+    first = np.stack(np.broadcast_arrays(b + 0j, lam - a), axis=1)
+    second = np.stack(np.broadcast_arrays(lam - d, c + 0j), axis=1)
+    n1 = np.sqrt(np.sum(np.abs(first) ** 2, axis=1, keepdims=True))
+    n2 = np.sqrt(np.sum(np.abs(second) ** 2, axis=1, keepdims=True))
+    vec = np.where(n1 >= n2, first, second)
+    norm = np.maximum(n1, n2)
+    with np.errstate(all="ignore"):
+        vec = vec / norm
+    # A = lam I: any basis
+    scalar = (norm == 0.0)[:, 0, :]
+    if np.any(scalar):
+        vec[scalar[:, 0], :, 0] = (1.0, 0.0)
+        vec[scalar[:, 1], :, 1] = (0.0, 1.0)
+    if np.all(lam.imag == 0.0):
+        return lam.real, vec.real
+    return lam, vec
+
+
+def _inv_or_nan(m: np.ndarray) -> np.ndarray:
+    try:
+        return np.linalg.inv(m)
+    except np.linalg.LinAlgError:
+        return np.full(m.shape, np.nan, dtype=m.dtype)
+
+
 class _ModalPlant:
     """A plant batch prepared for repeated frequency-response evaluation."""
 
@@ -96,18 +168,29 @@ class _ModalPlant:
             self.lam = np.zeros((k, 0), complex)
             self.res = np.zeros((k, 0), complex)
             self.direct = np.zeros(k, bool)
+            self._lam_t = self._res_t = np.zeros((0, k), complex)
             return
-        lam, vec = np.linalg.eig(self.a)
+        lam, vec = _small_eig(self.a)
+        # Frobenius-norm condition number of the eigenvectors (>= the 2-norm one)
         with np.errstate(all="ignore"):
-            cond = np.linalg.cond(vec)
+            try:
+                vinv = np.linalg.inv(vec)
+            except np.linalg.LinAlgError:  # an exactly singular eigenvector matrix somewhere
+                vinv = np.stack([_inv_or_nan(v) for v in vec])
+            cond = np.sqrt(np.sum(np.abs(vec) ** 2, axis=(1, 2))) * np.sqrt(
+                np.sum(np.abs(vinv) ** 2, axis=(1, 2))
+            )
         direct = ~(np.isfinite(cond) & (cond < _MODAL_COND_LIMIT))
         res = np.zeros((k, n), complex)
         ok = ~direct
         if np.any(ok):
-            vinv_b = np.linalg.solve(vec[ok], self.b[ok][..., None].astype(complex))[..., 0]
+            vinv_b = np.einsum("knm,km->kn", vinv[ok], self.b[ok])
             c_v = np.einsum("kn,knm->km", self.c[ok], vec[ok])
             res[ok] = c_v * vinv_b
         self.lam, self.res, self.direct = lam, res, direct
+        # one contiguous row per mode: fast gathers in pointwise()
+        self._lam_t = np.ascontiguousarray(lam.T)
+        self._res_t = np.ascontiguousarray(res.T)
 
     def __call__(self, omega, factor=None) -> np.ndarray:
         """``P(j omega)`` (times ``factor``, broadcast like ``omega``), rows in blocks."""
@@ -150,9 +233,11 @@ class _ModalPlant:
         loops = np.asarray(loops, dtype=np.intp)
         omega = np.asarray(omega, dtype=float)
         jw = 1j * omega
+        out = self.d.take(loops).astype(complex)
         with np.errstate(divide="ignore", invalid="ignore"):
-            out = self.d[loops] + np.sum(self.res[loops] / (jw[:, None] - self.lam[loops]), axis=1)
-        direct = self.direct[loops]
+            for res, lam in zip(self._res_t, self._lam_t, strict=True):
+                out += res.take(loops) / (jw - lam.take(loops))
+        direct = self.direct.take(loops)
         if np.any(direct):
             sel = np.nonzero(direct)[0]
             li = loops[sel]
@@ -165,6 +250,58 @@ class _ModalPlant:
     def dc_gain(self) -> np.ndarray:
         with np.errstate(divide="ignore", invalid="ignore"):
             return self(np.array([0.0]))[:, 0]
+
+    def singular_points(self) -> np.ndarray:
+        """Poles and finite zeros of every plant, shape ``(k, 2 n)``; a row of nan where unknown.
+
+        Poles are the eigenvalues of ``a``. Zeros are eigenvalues of ``a - b c / d`` when ``d``
+        is not negligible, else of ``(I - b c a^(r-1) / (c a^(r-1) b)) a`` with ``r`` the
+        relative degree (the first nonzero Markov parameter ``c a^(r-1) b``); that matrix also
+        has ``r`` eigenvalues at the origin, which only loosen the bounds they are used for.
+        Corners solved directly (near-defective ``a``), with a tiny nonzero ``d`` or a tiny
+        first Markov parameter (zeros too ill-conditioned to trust) get a row of nan.
+        """
+        k, n = self.k, self.n
+        out = np.full((k, 2 * n), np.nan + 0j)
+        if n == 0:
+            return out
+        a, b, c, d = self.a, self.b, self.c, self.d
+        norm_a = np.sqrt(np.einsum("kij,kij->k", a, a))
+        norm_b = np.sqrt(np.einsum("ki,ki->k", b, b))
+        row = c.copy()
+        markov = np.zeros(k)
+        rel = np.zeros(k)
+        found = np.zeros(k, dtype=bool)
+        for _ in range(n):
+            h = np.einsum("ki,ki->k", row, b)
+            new = ~found & (h != 0.0)
+            markov[new] = h[new]
+            rel[new] = np.abs(h[new]) / (
+                np.sqrt(np.einsum("ki,ki->k", row[new], row[new])) * norm_b[new]
+            )
+            found |= new
+            if np.all(found):
+                break
+            row = np.where(found[:, None], row, np.einsum("ki,kij->kj", row, a))
+        with np.errstate(all="ignore"):
+            d_rel = np.abs(d) * norm_a / (np.sqrt(np.einsum("ki,ki->k", c, c)) * norm_b)
+            use_d = d_rel > _ZERO_TRUST
+            mats = np.where(
+                use_d[:, None, None],
+                a - b[:, :, None] * c[:, None, :] / d[:, None, None],
+                a - b[:, :, None] * np.einsum("ki,kij->kj", row / markov[:, None], a)[:, None, :],
+            )
+        trusted = (use_d | ((d == 0.0) & found & (rel > _ZERO_TRUST))) & ~self.direct
+        trusted &= np.all(np.isfinite(mats), axis=(1, 2))
+        # a plant without any nonzero Markov parameter and d == 0 is identically zero: no zeros
+        null = (d == 0.0) & ~found & ~self.direct
+        zeros = np.zeros((k, n), dtype=complex)
+        if np.any(trusted):
+            zeros[trusted] = _small_eigvals(mats[trusted])
+        ok = trusted | null
+        out[ok, :n] = self.lam[ok]
+        out[ok, n:] = zeros[ok]
+        return out
 
 
 def plant_freqresp(a, b, c, d, omega) -> np.ndarray:
@@ -194,8 +331,8 @@ def plant_freqresp(a, b, c, d, omega) -> np.ndarray:
     Notes
     -----
     Modal form: ``a_i = V diag(lambda) V^-1``, residues ``r = (c V) * (V^-1 b)``, so
-    ``P(j w) = d + sum r_m/(j w - lambda_m)`` [1]_; corners with ``cond(V) > 1e8`` are solved
-    directly.
+    ``P(j w) = d + sum r_m/(j w - lambda_m)`` [1]_; corners whose eigenvectors have a
+    Frobenius-norm condition number ``||V||_F ||V^-1||_F > 1e8`` are solved directly.
 
     References
     ----------
@@ -271,23 +408,69 @@ def _check_comp(comp) -> Compensator:
     return comp
 
 
-def _loop_response(plant: _ModalPlant, comp: Compensator, delay: float):
-    def response(omega):
-        omega = np.asarray(omega, dtype=float)
-        gc = comp.freqresp(omega)
-        if delay > 0:
-            gc = gc * np.exp(-1j * omega * delay)
-        return plant(omega, factor=gc)
+def _comp_freqresp(comp: Compensator, omega: np.ndarray) -> np.ndarray:
+    """``Gc(j omega)`` for real ``omega`` from the factored form, in place (few temporaries)."""
+    s = 1j * omega
+    num = np.full(s.shape, comp.w_i, dtype=complex)
+    for wz in comp.zeros_rad:
+        num *= 1.0 + s * (1.0 / wz)
+    den = s.copy()
+    for wp in comp.poles_rad:
+        den *= 1.0 + s * (1.0 / wp)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        num /= den
+    return num
 
-    def pointwise(loops, omega):
-        omega = np.asarray(omega, dtype=float)
-        gc = comp.freqresp(omega)
-        if delay > 0:
-            gc = gc * np.exp(-1j * omega * delay)
-        return plant.pointwise(loops, omega) * gc
 
-    response.pointwise = pointwise
-    return response
+class _LoopResponse:
+    """``T(j w) = Gc P exp(-j w delay)`` of a plant batch, in the protocol of the margin search.
+
+    Besides the call itself it offers ``pointwise`` (one loop per frequency), ``on_grid``
+    (one loop per point of a shared grid) and, computed on first use, ``singularities``: the
+    compensator's poles and zeros (shared), the plant's poles and zeros (per loop) and the
+    delay, which let the margin search decide intervals without sampling them densely.
+    """
+
+    def __init__(self, plant: _ModalPlant, comp: Compensator, delay: float):
+        self.plant, self.comp, self.delay = plant, comp, delay
+        self._singularities = None
+        self._grid = None
+
+    def _gc(self, omega: np.ndarray) -> np.ndarray:
+        gc = _comp_freqresp(self.comp, omega)
+        if self.delay > 0:
+            gc = gc * np.exp(-1j * omega * self.delay)
+        return gc
+
+    def __call__(self, omega) -> np.ndarray:
+        omega = np.asarray(omega, dtype=float)
+        return self.plant(omega, factor=self._gc(omega))
+
+    def pointwise(self, loops, omega) -> np.ndarray:
+        omega = np.asarray(omega, dtype=float)
+        return self.plant.pointwise(loops, omega) * self._gc(omega)
+
+    def on_grid(self, loops, index, omega_grid) -> np.ndarray:
+        """Loop ``loops[i]`` at ``omega_grid[index[i]]``; ``Gc`` once per grid point."""
+        cached = self._grid
+        if cached is None or cached[0] is not omega_grid:
+            cached = self._grid = (omega_grid, self._gc(np.asarray(omega_grid, dtype=float)))
+        omega = cached[0].take(index)
+        return self.plant.pointwise(loops, omega) * cached[1].take(index)
+
+    @property
+    def singularities(self) -> tuple[np.ndarray, np.ndarray, float]:
+        if self._singularities is None:
+            comp = self.comp
+            shared = np.array(
+                [0.0, *(-w for w in comp.zeros_rad), *(-w for w in comp.poles_rad)], dtype=complex
+            )
+            self._singularities = (shared, self.plant.singular_points(), self.delay)
+        return self._singularities
+
+
+def _loop_response(plant: _ModalPlant, comp: Compensator, delay: float) -> _LoopResponse:
+    return _LoopResponse(plant, comp, delay)
 
 
 def loop_freqresp(a, b, c, d, comp: Compensator, omega, *, delay_s: float = 0.0) -> np.ndarray:
@@ -544,9 +727,11 @@ def analyze_loops(
     comp = _check_comp(comp)
     delay = _check_delay(delay_s)
     plant = _ModalPlant(a, b, c, d)
-    lo, hi = _default_range(plant, comp, delay)
-    lo = lo if f_min_hz is None else f_min_hz
-    hi = hi if f_max_hz is None else f_max_hz
+    lo, hi = f_min_hz, f_max_hz
+    if lo is None or hi is None:
+        default_lo, default_hi = _default_range(plant, comp, delay)
+        lo = default_lo if lo is None else lo
+        hi = default_hi if hi is None else hi
     margins = find_margins_batch(
         _loop_response(plant, comp, delay), lo, hi, points_per_decade=points_per_decade
     )
@@ -554,10 +739,9 @@ def analyze_loops(
         plant.a, plant.b, plant.c, plant.d, comp, delay_s=delay, pade_order=pade_order
     )
     stable = np.all(poles.real < 0.0, axis=1)
-    return [
-        LoopAnalysis(m, tuple(row), s)
-        for m, row, s in zip(margins, poles.tolist(), stable.tolist(), strict=True)
-    ]
+    return _frozen_instances(
+        LoopAnalysis, margins, list(map(tuple, poles.tolist())), stable.tolist()
+    )
 
 
 @dataclass(frozen=True)

@@ -53,7 +53,6 @@ CAPACITOR_RANGE_F = (10e-12, 10e-6)
 Network = Literal["op-amp", "ota"]
 
 
-
 def _divider(h) -> float:
     v = positive(h, "h")
     if v > 1.0:

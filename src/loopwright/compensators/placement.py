@@ -33,7 +33,6 @@ __all__ = [
 STRATEGIES: tuple[str, ...] = ("k-factor", "resonance")
 
 
-
 def synthesize_resonance(
     plant_at_fc: complex,
     f_c_hz: float,

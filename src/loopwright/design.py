@@ -695,14 +695,9 @@ def _digital(spec: DesignSpec, plant: PlantAnalysis, comp: Compensator, fc: floa
     a, b, c, dd = cp.model.path("v_out", "d", sign=sign)
     opts = DigitalOptions(
         sample_rate_hz=d.sample_rate_hz,
-        delay_samples=d.delay_samples,
         method=d.method,
         number_format=d.number_format,
-        adc_bits=d.adc_bits,
-        adc_full_scale_v=d.adc_full_scale_v,
-        pwm_counts=d.pwm_counts,
-        duty_min=d.duty_min,
-        duty_max=d.duty_max,
+        **d.hardware(),
     )
     with warnings.catch_warnings(record=True) as wrec:
         warnings.simplefilter("always")

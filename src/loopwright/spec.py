@@ -147,6 +147,17 @@ class DigitalSpec:
     duty_min: float = 0.0
     duty_max: float = 0.95
 
+    def hardware(self) -> dict:
+        """Delay, duty limits and converter resolutions as keyword arguments (SI units)."""
+        return {
+            "delay_samples": self.delay_samples,
+            "duty_min": self.duty_min,
+            "duty_max": self.duty_max,
+            "adc_bits": self.adc_bits,
+            "adc_full_scale_v": self.adc_full_scale_v,
+            "pwm_counts": self.pwm_counts,
+        }
+
 
 @dataclass(frozen=True)
 class DesignSpec:

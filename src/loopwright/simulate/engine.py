@@ -1189,16 +1189,7 @@ def controller_for_design(spec: Any, controller: Any) -> ControllerModel:
         )
     if hasattr(controller, "b") and hasattr(controller, "a"):
         dig = spec.digital
-        kw = {}
-        if dig is not None:
-            kw = dict(
-                delay_samples=dig.delay_samples,
-                duty_min=dig.duty_min,
-                duty_max=dig.duty_max,
-                adc_bits=dig.adc_bits,
-                adc_full_scale_v=dig.adc_full_scale_v,
-                pwm_counts=dig.pwm_counts,
-            )
+        kw = dig.hardware() if dig is not None else {}
         return DigitalController(controller.b, controller.a, spec.sense_gain, spec.v_ref, **kw)
     if hasattr(controller, "statespace") or (
         hasattr(controller, "num") and hasattr(controller, "den")

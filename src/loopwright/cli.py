@@ -404,6 +404,8 @@ def _design_text(result) -> str:
         rounded = ""
         if c.analysis_rounded is not None:
             rounded = f"{c.analysis_rounded.phase_margin_deg:.1f}"
+        elif c.sampled is not None:
+            rounded = f"{c.sampled['phase_margin_deg']:.1f} (z)"
         rows.append(
             [
                 c.name,
@@ -418,7 +420,7 @@ def _design_text(result) -> str:
     out.append("")
     out.append(
         table(
-            ["corner", "crossover", "PM deg", "GM dB", "PM rounded", "verdict"],
+            ["corner", "crossover", "PM deg", "GM dB", "PM parts/z", "verdict"],
             rows,
             left_last=True,
         )

@@ -110,6 +110,7 @@ class CornerResult:
     failures: tuple[str, ...] = ()
     analysis_rounded: LoopAnalysis | None = None
     meets_targets_rounded: bool | None = None
+    sampled: dict | None = None
 
     def to_dict(self) -> dict:
         a = self.analysis
@@ -134,6 +135,8 @@ class CornerResult:
             r = self.analysis_rounded
             d["rounded"] = _loop_dict(r)
             d["meets_targets_rounded"] = self.meets_targets_rounded
+        if self.sampled is not None:
+            d["sampled"] = dict(self.sampled)
         return d
 
 
@@ -648,6 +651,8 @@ def design(spec: DesignSpec, *, progress: Callable[[str], None] | None = None) -
         say("discretising the controller")
         digital, dnotes = _digital(spec, plant, comp, fc)
         notes.extend(dnotes)
+        say(f"proving the sampled loop at {len(results)} corners")
+        results = _sampled_corners(spec, plant, digital, results)
     meets = all(r.meets_targets for r in results)
     for r in results:
         if r.analysis is not None and r.analysis.margins.conditionally_stable:
@@ -711,3 +716,66 @@ def _digital(spec: DesignSpec, plant: PlantAnalysis, comp: Compensator, fc: floa
             f_c_hz=fc,
         )
     return dig, [str(w.message) for w in wrec]
+
+
+def _sampled_corners(spec: DesignSpec, plant: PlantAnalysis, dig, results):
+    """Prove the sampled loop (quantised coefficients, ZOH plant, computation delay) at every
+    corner: stability from the closed-loop poles of the z-domain loop, then the margins."""
+    from dataclasses import replace
+
+    from .discrete import SampledLoop, sample_plant
+    from .margins import find_margins
+
+    d = spec.digital
+    fs = d.sample_rate_hz
+    t_s = 1.0 / fs
+    sign = -1.0 if spec.power_stage.topology == "buck-boost" else 1.0
+    ctl = dig.quantisation.controller
+    by_name = {cp.corner.name: cp for cp in (plant.nominal, *plant.corners)}
+    t = spec.target
+    out = []
+    for r in results:
+        cp = by_name.get(r.name)
+        if cp is None or cp.model is None:
+            out.append(r)
+            continue
+        a, b, c, dd = cp.model.path("v_out", "d", sign=sign)
+        pz = sample_plant(
+            (a, b.reshape(-1, 1), c.reshape(1, -1), np.array([[dd]])),
+            t_s,
+            dig.options.computation_delay_samples,
+        )
+        loop = SampledLoop(ctl, pz, spec.sense_gain)
+        stable = bool(loop.closed_loop_stable())
+        m = find_margins(loop.freqresp, 1e-4 * min(dig.f_c_hz, fs), 0.4999 * fs)
+        fails = []
+        if not stable:
+            fails.append(
+                "sampled loop UNSTABLE (z-domain closed-loop poles outside the unit circle)"
+            )
+        else:
+            if not m.phase_margin_deg >= t.phase_margin_deg - CHECK_TOL:
+                fails.append(
+                    f"sampled loop phase margin {m.phase_margin_deg:.2f} deg < "
+                    f"{t.phase_margin_deg:g} deg"
+                )
+            if not m.gain_margin_db >= t.gain_margin_db - CHECK_TOL:
+                fails.append(
+                    f"sampled loop gain margin {m.gain_margin_db:.2f} dB < {t.gain_margin_db:g} dB"
+                )
+        sampled = {
+            "crossover_hz": m.crossover_hz,
+            "phase_margin_deg": m.phase_margin_deg,
+            "gain_margin_db": m.gain_margin_db,
+            "closed_loop_stable": stable,
+            "meets_targets": not fails,
+        }
+        out.append(
+            replace(
+                r,
+                sampled=sampled,
+                meets_targets=r.meets_targets and not fails,
+                failures=tuple(r.failures) + tuple(fails),
+            )
+        )
+    return out

@@ -17,36 +17,12 @@ from pathlib import Path
 
 import pytest
 
+from _designs import minimal_buck
 from loopwright.cli import main
 
 EXAMPLES = sorted((Path(__file__).resolve().parents[1] / "examples").glob("*.toml"))
 
-BASE = """\
-name = "cli-buck"
-
-[power_stage]
-topology = "buck"
-fsw = "250 kHz"
-vin = "36 V"
-vout = "12 V"
-iout = "3 A"
-
-[power_stage.inductor]
-value = "22 uH"
-
-[power_stage.capacitor]
-value = "100 uF"
-
-[modulator]
-ramp = "2.5 V"
-
-[feedback]
-vref = "1.2 V"
-
-[target]
-crossover = "auto"
-phase_margin = "55 deg"
-"""
+BASE = minimal_buck("cli-buck")
 
 
 def run(capsys, *argv):

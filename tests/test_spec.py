@@ -11,35 +11,11 @@ import math
 
 import pytest
 
+from _designs import minimal_buck
 from loopwright.errors import DesignError
 from loopwright.spec import corners, load_design, parse_design
 
-BASE = """\
-name = "unit-buck"
-
-[power_stage]
-topology = "buck"
-fsw = "250 kHz"
-vin = "36 V"
-vout = "12 V"
-iout = "3 A"
-
-[power_stage.inductor]
-value = "22 uH"
-
-[power_stage.capacitor]
-value = "100 uF"
-
-[modulator]
-ramp = "2.5 V"
-
-[feedback]
-vref = "1.2 V"
-
-[target]
-crossover = "auto"
-phase_margin = "55 deg"
-"""
+BASE = minimal_buck("unit-buck")
 
 FULL = """\
 name = "trail-lamp-buck"
